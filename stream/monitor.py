@@ -1,0 +1,145 @@
+"""The one pipeline used by live, replay, demo, headless and the TUI.
+
+``ingest`` takes batches (per batch, vectorised); ``tick`` takes a snapshot of the
+rolling pattern, measures it, evaluates the alarms and returns a :class:`Tick`.
+Time is always injected: receive time live, recorded time in replay.  Nothing here
+reads a clock, touches a socket or a file, or prints.
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from collections.abc import Callable
+
+import numpy as np
+
+from stream.alarms import AlarmEngine
+from stream.array_model import ArrayModel
+from stream.batch import SampleBatch
+from stream.estimator import RollingPattern
+from stream.pattern import measure
+from stream.tick import Event, Reference, SourceStats, Tick
+
+#: Window over which the sample rate is averaged, seconds.
+RATE_WINDOW_S: float = 2.0
+
+
+class Monitor:
+    """Estimator + metrics + alarms, with sinks for batches, ticks and events."""
+
+    def __init__(self, estimator: RollingPattern, alarms: AlarmEngine | None = None,
+                 model: ArrayModel | None = None, *, target_deg: float | None = None,
+                 tolerance_deg: float | None = None) -> None:
+        self.estimator = estimator
+        self.alarms = alarms
+        self.model = model
+        self.target_deg = target_deg
+        self.tolerance_deg = tolerance_deg
+        self.reference: Reference | None = None
+        self.calibrated = True
+        self.last_sample_t: float | None = None
+        self.last_tick: Tick | None = None
+        self._rate_hist: deque[tuple[float, int]] = deque()
+        self._pending: list[Event] = []
+        self.batch_sinks: list[Callable[[SampleBatch], None]] = []
+        self.tick_sinks: list[Callable[[Tick], None]] = []
+        self.event_sinks: list[Callable[[Event], None]] = []
+        self._expected_hpbw = _model_hpbw(model) if model is not None else None
+
+    # -- data in ---------------------------------------------------------------------
+    def ingest(self, batch: SampleBatch) -> None:
+        """Fold one batch into the rolling pattern (at the batch's receive time)."""
+        if len(batch) == 0:
+            return
+        self.estimator.update(batch, batch.rx_t)
+        self.calibrated = batch.calibrated
+        self.last_sample_t = batch.rx_t
+        for sink in self.batch_sinks:
+            sink(batch)
+
+    # -- user actions (each becomes an event) ----------------------------------------
+    def _emit(self, event: Event) -> Event:
+        self._pending.append(event)
+        for sink in self.event_sinks:
+            sink(event)
+        return event
+
+    def capture_reference(self, t: float) -> Event | None:
+        """Keep the current pattern as the installation reference."""
+        tick = self.last_tick
+        if tick is None or tick.metrics.peak_angle_deg is None:
+            return None
+        self.reference = Reference(t, tick.angle_deg.copy(), tick.power_db.copy(), tick.metrics)
+        return self._emit(Event(t, "reference", {
+            "peak_angle_deg": tick.metrics.peak_angle_deg,
+            "peak_power_db": tick.metrics.peak_power_db, "hpbw_deg": tick.metrics.hpbw_deg}))
+
+    def clear_reference(self, t: float) -> Event:
+        self.reference = None
+        return self._emit(Event(t, "reference_cleared", {}))
+
+    def set_target(self, t: float, target_deg: float | None,
+                   tolerance_deg: float | None = None) -> Event:
+        self.target_deg = target_deg
+        if tolerance_deg is not None:
+            self.tolerance_deg = tolerance_deg
+        return self._emit(Event(t, "target", {"target_deg": target_deg,
+                                              "tolerance_deg": self.tolerance_deg}))
+
+    def mark(self, t: float, text: str) -> Event:
+        return self._emit(Event(t, "marker", {"text": text}))
+
+    def reset(self, t: float) -> Event:
+        self.estimator.reset()
+        self._rate_hist.clear()
+        return self._emit(Event(t, "reset", {}))
+
+    # -- readout -----------------------------------------------------------------------
+    def tick(self, t: float, source: SourceStats | None = None) -> Tick:
+        """Measure the pattern as it stands at ``t`` and evaluate the alarms."""
+        source = source or SourceStats()
+        snap = self.estimator.snapshot(t)
+        metrics = measure(snap.angle_deg, snap.power_db)
+        samples = self.estimator.samples
+        self._rate_hist.append((t, samples))
+        while len(self._rate_hist) > 2 and self._rate_hist[1][0] <= t - RATE_WINDOW_S:
+            self._rate_hist.popleft()
+        t0, s0 = self._rate_hist[0]
+        rate = (samples - s0) / (t - t0) if t > t0 else 0.0
+        sweeps = self.estimator.sweeps
+        peaks = np.array([s.peak_angle_deg if s.peak_angle_deg is not None else np.nan
+                          for s in sweeps], dtype=np.float64)
+        peak_t = np.array([s.t for s in sweeps], dtype=np.float64)
+        expected = self._expected_hpbw
+        tick = Tick(
+            t=t, metrics=metrics, angle_deg=snap.angle_deg, power_db=snap.power_db,
+            samples=samples, sweeps=self.estimator.sweep_count, rate_sps=float(rate),
+            peak_angle_spread_deg=self.estimator.peak_angle_spread_deg(),
+            sweep_peaks_deg=peaks, sweep_peak_t=peak_t, last_sample_t=self.last_sample_t,
+            source=source, target_deg=self.target_deg, tolerance_deg=self.tolerance_deg,
+            reference=self.reference, expected_hpbw_deg=expected, calibrated=self.calibrated,
+        )
+        events = list(self._pending)
+        self._pending.clear()
+        if self.alarms is not None:
+            for ev in self.alarms.evaluate(tick):
+                events.append(ev)
+                for sink in self.event_sinks:
+                    sink(ev)
+        if events:
+            tick = _with_events(tick, tuple(events))
+        self.last_tick = tick
+        for sink in self.tick_sinks:
+            sink(tick)
+        return tick
+
+
+def _with_events(tick: Tick, events: tuple[Event, ...]) -> Tick:
+    from dataclasses import replace
+    return replace(tick, events=events)
+
+
+def _model_hpbw(model: ArrayModel) -> float | None:
+    """The model's HPBW, measured on a fine grid with the same metric code."""
+    grid = np.arange(-180.0, 180.0, 0.05)
+    return measure(grid, model.power_db(grid)).hpbw_deg

@@ -1,0 +1,66 @@
+"""The ``lobewatch`` command line: one sub-command per module in ``tui.commands``."""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from stream.errors import UserError
+
+#: Sub-commands in the order ``--help`` lists them; each names a module in
+#: ``tui.commands`` that defines ``register(subparsers)``.
+COMMANDS: tuple[str, ...] = ("demo", "live", "synth", "replay", "report", "import_", "export",
+                             "bench")
+
+EPILOG = """\
+Safety: stay out of the main beam of energised antennas and follow your local RF
+exposure limits; work at height only as your training and local rules allow; transmit
+only on spectrum you are licensed for.  Local codes and licensed practice come first.
+"""
+
+
+class UsageError(UserError):
+    """Bad command-line input: printed as one line, exit status 2."""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="lobewatch",
+        description="Turn a stream of (angle, power) samples from a swept beam into a live "
+                    "beam readout: peak direction, beamwidths, side lobes, model fit, alarms.",
+        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMANDS:
+        try:
+            mod = importlib.import_module(f"tui.commands.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"tui.commands.{name}":
+                continue  # not built yet
+            raise
+        mod.register(sub)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args.func(args) or 0)
+    except UsageError as exc:
+        print(f"lobewatch {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except UserError as exc:
+        print(f"lobewatch {args.command}: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
