@@ -10,15 +10,19 @@ from __future__ import annotations
 
 from collections import deque
 from collections.abc import Callable
+from dataclasses import replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from stream.alarms import AlarmEngine
 from stream.array_model import ArrayModel
 from stream.batch import SampleBatch
-from stream.estimator import RollingPattern
 from stream.pattern import measure
 from stream.tick import Event, Reference, SourceStats, Tick
+
+if TYPE_CHECKING:
+    from stream.alarms import AlarmEngine
+    from stream.estimator import RollingPattern
 
 #: Window over which the sample rate is averaged, seconds.
 RATE_WINDOW_S: float = 2.0
@@ -127,16 +131,11 @@ class Monitor:
                 for sink in self.event_sinks:
                     sink(ev)
         if events:
-            tick = _with_events(tick, tuple(events))
+            tick = replace(tick, events=tuple(events))
         self.last_tick = tick
         for sink in self.tick_sinks:
             sink(tick)
         return tick
-
-
-def _with_events(tick: Tick, events: tuple[Event, ...]) -> Tick:
-    from dataclasses import replace
-    return replace(tick, events=events)
 
 
 def _model_hpbw(model: ArrayModel) -> float | None:
