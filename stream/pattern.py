@@ -59,6 +59,9 @@ _FLAT_DB: float = 1e-9
 _RISE_MIN_DB: float = 1.0
 _RISE_MAX_DB: float = 6.0
 _RISE_NOISE_FACTOR: float = 5.0
+#: Residual (dB rms) of a parabola through the main lobe's top above which the data
+#: are treated as noisy (clean patterns leave far less, see tests).
+_NOISE_DB: float = 0.02
 
 
 def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
@@ -112,17 +115,42 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         ic = i
 
     v_r, pk_db = _vertex(r, pr, ic, circular)
+    rise = _hysteresis_db(pr)
+    right, left, k_sl, sl_edge = _lobes(r, pr, ic, pk_db, rise, circular)
+    sl = _vertex(r, pr, k_sl, circular) if k_sl is not None and not sl_edge else None
+
+    # Noisy dense data: a 3-point parabola would follow the noise.  When the top of
+    # the main lobe holds enough samples and a least-squares parabola through them
+    # leaves residuals above _NOISE_DB, measure on a moving average instead and take
+    # the peak and side lobe levels from least-squares parabolas on the raw samples.
+    if right.hp is not None and left.hp is not None:
+        half = 0.25 * (right.hp + left.hp)
+        fit = _lsq_vertex(r, pr, 0.5 * (right.hp - left.hp), half, circular)
+        if fit is not None and fit[2] > _NOISE_DB:
+            sigma = fit[2]
+            k = max(3, 2 * (fit[3] // 6) + 1)
+            ps = _moving_average(pr, k, circular)
+            j = int(np.argmax(ps))
+            # Direction from the whole half-power width (noise averages out), level
+            # from the top half of it (where a parabola in dB fits the lobe).
+            wide = _lsq_vertex(r, pr, float(r[j]), 2.0 * half, circular)
+            ctr = wide[0] if wide is not None else float(r[j])
+            fit = _lsq_vertex(r, pr, ctr, half, circular) or fit
+            v_r, pk_db = ctr, fit[1]
+            rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
+            right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
+            # Offsets from the smoothed peak sample -> offsets from the peak sample.
+            right.shift(float(r[j]))
+            left.shift(-float(r[j]))
+            sl = None
+            if k_sl is not None and not sl_edge:
+                f2 = _lsq_vertex(r, pr, float(r[k_sl]), half, circular)
+                sl = (f2[0], f2[1]) if f2 is not None else (float(r[k_sl]), float(ps[k_sl]))
+
     reasons: dict[str, str] = {}
     vals: dict[str, float | None] = dict.fromkeys(METRIC_KEYS)
     vals["peak_angle_deg"] = _out(x_pk + v_r, report_wrapped)
     vals["peak_power_db"] = pk_db
-
-    rise = _hysteresis_db(pr)
-    lvl3 = pk_db + HALF_POWER_DB
-    lvl10 = pk_db + BW10_DB
-    # Right side: offsets >= 0; left side: mirrored so the same code walks outward.
-    right = _walk(r[ic:], pr[ic:], lvl3, lvl10, rise)
-    left = _walk(-r[ic::-1], pr[ic::-1], lvl3, lvl10, rise)
     span_edge = "the pattern never falls {0} below the peak on the {1} side inside the " \
                 "scanned span"
 
@@ -150,28 +178,18 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         reasons["fnbw_deg"] = (f"no minimum on the {side} side of the main lobe inside the "
                                "scanned span (the pattern keeps falling to its edge)")
 
-    # Side lobe level: highest sample outside the first nulls.
-    m = r.size
-    side_mask = np.zeros(m, dtype=bool)
-    if right.null_idx is not None:
-        side_mask[ic + right.null_idx + 1:] = True
-    if left.null_idx is not None:
-        side_mask[: ic - left.null_idx] = True
-    if not side_mask.any():
+    # Side lobe level.
+    if k_sl is None:
         reasons["sll_db"] = reasons["sll_angle_deg"] = (
             "no side lobe: the pattern has a single lobe inside the scanned span")
+    elif sl is None:
+        edge = _out(x_pk + r[k_sl], report_wrapped)
+        reasons["sll_db"] = reasons["sll_angle_deg"] = (
+            f"the highest side level is on the edge of the sweep ({edge:.2f} deg) and "
+            "still rising; the side lobe may lie outside the scanned span")
     else:
-        cand = np.where(side_mask, pr, -np.inf)
-        k = int(np.argmax(cand))
-        if not circular and (k == 0 or k == m - 1):
-            edge = _out(x_pk + r[k], report_wrapped)
-            reasons["sll_db"] = reasons["sll_angle_deg"] = (
-                f"the highest side level is on the edge of the sweep ({edge:.2f} deg) and "
-                "still rising; the side lobe may lie outside the scanned span")
-        else:
-            sv, sp = _vertex(r, pr, k, circular)
-            vals["sll_db"] = sp - pk_db
-            vals["sll_angle_deg"] = _out(x_pk + sv, report_wrapped)
+        vals["sll_db"] = sl[1] - pk_db
+        vals["sll_angle_deg"] = _out(x_pk + sl[0], report_wrapped)
 
     # Front-to-back ratio.
     back = float(vals["peak_angle_deg"]) + 180.0  # type: ignore[arg-type]
@@ -295,6 +313,15 @@ class _Side:
         self.null: float | None = None
         self.null_idx: int | None = None
 
+    def shift(self, d: float) -> None:
+        """Add ``d`` to every offset found (walk started off the peak sample)."""
+        if self.hp is not None:
+            self.hp += d
+        if self.bw10 is not None:
+            self.bw10 += d
+        if self.null is not None:
+            self.null += d
+
 
 def _crossing(r: np.ndarray, p: np.ndarray, level: float, stop: int) -> float | None:
     """Offset where p falls through ``level`` within p[:stop+1]: mean of the innermost
@@ -356,3 +383,75 @@ def _null_offset(r: np.ndarray, p: np.ndarray, k: int) -> float:
     s = (a2 - a1) / (x2 - x1)
     xz = x1 - (a1 / s if s > 0 else 0.0)
     return float(max(xz, 0.5 * (x0 + x1)))
+
+
+def _lobes(r: np.ndarray, q: np.ndarray, j: int, pk_db: float, rise: float,
+           circular: bool) -> tuple[_Side, _Side, int | None, bool]:
+    """Walk both sides from sample j and locate the highest side level.
+
+    Returns the two sides (offsets from r[j]), the index of the highest sample outside
+    the first nulls (``None`` when no null was found) and whether that sample sits on
+    the edge of a sector sweep.
+    """
+    lvl3 = pk_db + HALF_POWER_DB
+    lvl10 = pk_db + BW10_DB
+    right = _walk(r[j:] - r[j], q[j:], lvl3, lvl10, rise)
+    left = _walk(r[j] - r[j::-1], q[j::-1], lvl3, lvl10, rise)
+    m = r.size
+    side = np.zeros(m, dtype=bool)
+    if right.null_idx is not None:
+        side[j + right.null_idx + 1:] = True
+    if left.null_idx is not None:
+        side[: j - left.null_idx] = True
+    if not side.any():
+        return right, left, None, False
+    k = int(np.argmax(np.where(side, q, -np.inf)))
+    return right, left, k, (not circular and (k == 0 or k == m - 1))
+
+
+def _lsq_vertex(r: np.ndarray, p: np.ndarray, center: float, half: float,
+                circular: bool) -> tuple[float, float, float, int] | None:
+    """Least-squares parabola (dB) through the samples within ``half`` of ``center``.
+
+    Returns ``(vertex offset, vertex level, rms residual dB, samples used)``, or
+    ``None`` with fewer than 7 samples or a non-concave fit.
+    """
+    d = r - center
+    if circular:
+        d = (d + 180.0) % 360.0 - 180.0
+    sel = np.abs(d) <= half
+    cnt = int(np.count_nonzero(sel))
+    if cnt < 7:
+        return None
+    u = d[sel] / half
+    y = p[sel]
+    u2 = u * u
+    # Normal equations of y = a u^2 + b u + c (u scaled to [-1, 1]: well conditioned).
+    s1, s2, s3, s4 = u.sum(), u2.sum(), (u2 * u).sum(), (u2 * u2).sum()
+    m = np.array([[s4, s3, s2], [s3, s2, s1], [s2, s1, float(cnt)]])
+    rhs = np.array([(u2 * y).sum(), (u * y).sum(), y.sum()])
+    try:
+        a, b, c = (float(z) for z in np.linalg.solve(m, rhs))
+    except np.linalg.LinAlgError:
+        return None
+    if not a < 0.0:
+        return None
+    res = y - ((a * u + b) * u + c)
+    rms = float(np.sqrt(np.mean(res * res)))
+    uv = min(max(-b / (2.0 * a), -1.0), 1.0)
+    return center + uv * half, a * uv * uv + b * uv + c, rms, cnt
+
+
+def _moving_average(p: np.ndarray, k: int, circular: bool) -> np.ndarray:
+    """Centred moving average over k (odd) samples; shrinks at sector edges."""
+    h = k // 2
+    n = p.size
+    if circular and n > k:
+        ext = np.concatenate((p[-h:], p, p[:h]))
+        c = np.concatenate(([0.0], np.cumsum(ext)))
+        return (c[k:] - c[:-k]) / k
+    c = np.concatenate(([0.0], np.cumsum(p)))
+    idx = np.arange(n)
+    lo = np.maximum(idx - h, 0)
+    hi = np.minimum(idx + h + 1, n)
+    return (c[hi] - c[lo]) / (hi - lo)
