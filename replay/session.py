@@ -1,0 +1,659 @@
+"""Session files (``.lws``): one SQLite database per recorded or imported session.
+
+Why SQLite: a committed transaction survives a killed process (WAL journal), the file
+is self-describing and readable with nothing but Python's ``sqlite3`` and ``numpy``,
+and indexed times make seeking cheap.  The schema is documented for users in
+``docs/session-format.md``; this module is the only code that knows it.
+
+Rows of ``batches``, ``ticks`` and ``events`` share one id sequence: the order in which
+the live pipeline saw them.  Replaying rows in id order feeds the pipeline exactly what
+it was fed live, so the replay computes the same numbers.
+"""
+
+from __future__ import annotations
+
+import heapq
+import json
+import math
+import os
+import sqlite3
+import struct
+import time
+import zlib
+from collections.abc import Iterator
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, NamedTuple
+
+import numpy as np
+
+from stream.batch import SampleBatch
+from stream.beam import METRIC_KEYS, BeamMetrics
+from stream.errors import InputFileError, UserError
+from stream.tick import Event, Reference, SourceStats
+
+#: ``PRAGMA application_id`` of a lobewatch session ("LbWs" in ASCII).
+APPLICATION_ID: int = 0x4C625773
+#: Session format version, stored as ``PRAGMA user_version`` and in ``meta``.
+FORMAT_VERSION: int = 1
+#: File name extension of session files.
+SUFFIX: str = ".lws"
+
+_SQLITE_MAGIC = b"SQLite format 3\x00"
+
+_SCHEMA = """
+CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE batches (
+    id INTEGER PRIMARY KEY, rx_t REAL NOT NULL, t_first REAL, t_last REAL,
+    n INTEGER NOT NULL, seq INTEGER, epoch TEXT, stream TEXT NOT NULL DEFAULT '',
+    calibrated INTEGER NOT NULL, t BLOB NOT NULL, angle_deg BLOB NOT NULL,
+    power_db BLOB NOT NULL, crc INTEGER NOT NULL);
+CREATE INDEX batches_rx_t ON batches (rx_t);
+CREATE TABLE ticks (id INTEGER PRIMARY KEY, t REAL NOT NULL, source TEXT NOT NULL,
+    crc INTEGER NOT NULL);
+CREATE INDEX ticks_t ON ticks (t);
+CREATE TABLE events (id INTEGER PRIMARY KEY, t REAL NOT NULL, kind TEXT NOT NULL,
+    data TEXT NOT NULL, crc INTEGER NOT NULL);
+CREATE INDEX events_t ON events (t);
+CREATE TABLE refs (event_id INTEGER PRIMARY KEY, angle_deg BLOB NOT NULL,
+    power_db BLOB NOT NULL, metrics TEXT NOT NULL, crc INTEGER NOT NULL);
+"""
+
+_TABLES = ("meta", "batches", "ticks", "events", "refs")
+
+_HEAD = struct.Struct("<dqq")
+
+_FIX_HINT = "use a backup copy of the session, or re-record it"
+
+
+def _json_default(obj: Any) -> Any:
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, (set, tuple)):
+        return list(obj)
+    if isinstance(obj, Path):
+        return str(obj)
+    raise TypeError(f"{type(obj).__name__} is not JSON serialisable")
+
+
+def dumps(obj: Any) -> str:
+    """JSON text as stored in the file (compact, numpy scalars as numbers)."""
+    return json.dumps(obj, separators=(",", ":"), default=_json_default)
+
+
+def _f8(a: np.ndarray) -> bytes:
+    return np.ascontiguousarray(a, dtype="<f8").tobytes()
+
+
+def batch_crc(rx_t: float, n: int, seq: int | None, t: bytes, a: bytes, p: bytes) -> int:
+    """CRC-32 over a batch row's receive time, count, seq and the three blobs."""
+    c = zlib.crc32(_HEAD.pack(rx_t, n, -1 if seq is None else seq))
+    return zlib.crc32(p, zlib.crc32(a, zlib.crc32(t, c)))
+
+
+def text_crc(t: float, *texts: str) -> int:
+    """CRC-32 over a tick's or event's time (repr) and JSON text."""
+    return zlib.crc32("\x1f".join((repr(float(t)), *texts)).encode("utf-8"))
+
+
+class SessionItem(NamedTuple):
+    """One row of a session in recorded order.
+
+    ``kind`` is ``"batch"`` (value: :class:`SampleBatch`), ``"tick"`` (value:
+    :class:`SourceStats`) or ``"event"`` (value: :class:`Event`); ``t`` is the batch's
+    receive time or the tick's / event's time.
+    """
+
+    kind: str
+    id: int
+    t: float
+    value: Any
+
+
+@dataclass(frozen=True, slots=True)
+class TimeSpan:
+    """First and last recorded time of a session (Unix seconds)."""
+
+    t_start: float
+    t_end: float
+
+    @property
+    def duration_s(self) -> float:
+        return self.t_end - self.t_start
+
+
+# ---------------------------------------------------------------------------------------
+# writing
+# ---------------------------------------------------------------------------------------
+
+def remove_session(path: str | os.PathLike[str]) -> None:
+    """Delete a session file and its SQLite side files (``-wal``, ``-shm``)."""
+    for suffix in ("", "-wal", "-shm", "-journal"):
+        try:
+            os.unlink(f"{os.fspath(path)}{suffix}")
+        except FileNotFoundError:
+            pass
+
+
+class SessionWriter:
+    """Creates a new session file and appends rows to it.
+
+    Rows are buffered and written with ``executemany`` on :meth:`commit`; nothing is
+    durable before a commit.  Refuses to overwrite an existing file unless ``force``.
+    Use from one thread only (the recorder gives it its own thread).
+    """
+
+    def __init__(self, path: str | os.PathLike[str], metadata: dict[str, Any] | None = None,
+                 force: bool = False, *, synchronous: str = "FULL",
+                 check_same_thread: bool = True) -> None:
+        self.path = os.fspath(path)
+        if os.path.isdir(self.path):
+            raise UserError(f"{self.path}: is a directory; give a file name ending in {SUFFIX}")
+        if os.path.exists(self.path):
+            if not force:
+                raise UserError(f"{self.path}: file exists; choose another name or add --force "
+                                "to overwrite it")
+            remove_session(self.path)
+        else:
+            for suffix in ("-wal", "-shm", "-journal"):  # left over from a deleted file
+                try:
+                    os.unlink(self.path + suffix)
+                except FileNotFoundError:
+                    pass
+        try:
+            fd = os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+            os.close(fd)
+        except FileExistsError:
+            raise UserError(f"{self.path}: file appeared while creating it; choose another "
+                            "name") from None
+        except OSError as exc:
+            raise UserError(f"{self.path}: cannot create the session file ({exc.strerror}); "
+                            "check the directory exists and is writable") from None
+        try:
+            con = sqlite3.connect(self.path, isolation_level=None,
+                                  check_same_thread=check_same_thread)
+            # Header fields and schema go into the main file before WAL is switched on,
+            # so even a session killed a moment later identifies itself.
+            con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+            con.execute(f"PRAGMA user_version = {FORMAT_VERSION}")
+            con.execute("BEGIN")
+            for stmt in _SCHEMA.split(";"):
+                if stmt.strip():
+                    con.execute(stmt)
+            meta = {"format_version": FORMAT_VERSION, "created_t": time.time()}
+            meta.update(metadata or {})
+            con.executemany("INSERT INTO meta (key, value) VALUES (?, ?)",
+                            [(str(k), dumps(v)) for k, v in meta.items()])
+            con.execute("COMMIT")
+            mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            if str(mode).lower() != "wal":
+                raise sqlite3.OperationalError(f"journal mode {mode}")
+            con.execute(f"PRAGMA synchronous = {synchronous}")
+        except sqlite3.Error as exc:
+            remove_session(self.path)
+            raise UserError(f"{self.path}: cannot initialise the session file ({exc}); "
+                            "check free space and permissions") from None
+        self._con: sqlite3.Connection | None = con
+        self.meta = meta
+        self._next_id = 1
+        self._batches: list[tuple] = []
+        self._ticks: list[tuple] = []
+        self._events: list[tuple] = []
+        self._refs: list[tuple] = []
+        self._meta_updates: list[tuple[str, str]] = []
+        self.pending_bytes = 0
+        self.samples_written = 0
+        self.rows_written = 0
+
+    # -- rows --------------------------------------------------------------------------
+    def _take_id(self) -> int:
+        i = self._next_id
+        self._next_id += 1
+        return i
+
+    def write_batch(self, batch: SampleBatch) -> int:
+        """Queue one batch; returns its row id."""
+        n = len(batch)
+        tb, ab, pb = _f8(batch.t), _f8(batch.angle_deg), _f8(batch.power_db)
+        rx_t = float(batch.rx_t)
+        t_first = float(batch.t[0]) if n else None
+        t_last = float(batch.t[-1]) if n else None
+        seq = None if batch.seq is None else int(batch.seq)
+        i = self._take_id()
+        self._batches.append((i, rx_t, t_first, t_last, n, seq, batch.epoch, batch.stream or "",
+                              1 if batch.calibrated else 0, tb, ab, pb,
+                              batch_crc(rx_t, n, seq, tb, ab, pb)))
+        self.pending_bytes += 3 * 8 * n + 64
+        self.samples_written += n
+        return i
+
+    def write_tick(self, t: float, source: SourceStats | dict[str, Any] | None) -> int:
+        """Queue one tick time with the source counters at that tick."""
+        d = source.to_dict() if isinstance(source, SourceStats) else dict(source or {})
+        text = dumps(d)
+        i = self._take_id()
+        self._ticks.append((i, float(t), text, text_crc(t, text)))
+        self.pending_bytes += len(text) + 32
+        return i
+
+    def write_event(self, event: Event, reference: Reference | None = None) -> int:
+        """Queue one event; a ``reference`` event may carry the captured trace."""
+        text = dumps(event.data)
+        i = self._take_id()
+        self._events.append((i, float(event.t), event.kind, text,
+                             text_crc(event.t, event.kind, text)))
+        self.pending_bytes += len(text) + 32
+        if reference is not None:
+            ab, pb = _f8(reference.angle_deg), _f8(reference.power_db)
+            mtext = dumps(reference.metrics.to_dict())
+            self._refs.append((i, ab, pb, mtext, zlib.crc32(pb, zlib.crc32(ab)) ^ text_crc(
+                event.t, mtext)))
+            self.pending_bytes += len(ab) + len(pb)
+        return i
+
+    def set_meta(self, key: str, value: Any) -> None:
+        """Write (or replace) one metadata value; durable at the next commit."""
+        self.meta[key] = value
+        self._meta_updates.append((key, dumps(value)))
+
+    @property
+    def has_pending(self) -> bool:
+        return bool(self._batches or self._ticks or self._events or self._refs
+                    or self._meta_updates)
+
+    def _require(self) -> sqlite3.Connection:
+        if self._con is None:
+            raise UserError(f"{self.path}: session already closed")
+        return self._con
+
+    def commit(self) -> None:
+        """Write all queued rows in one transaction (durable when this returns)."""
+        con = self._require()
+        if not self.has_pending:
+            return
+        try:
+            con.execute("BEGIN")
+            if self._batches:
+                con.executemany("INSERT INTO batches VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)",
+                                self._batches)
+            if self._ticks:
+                con.executemany("INSERT INTO ticks VALUES (?,?,?,?)", self._ticks)
+            if self._events:
+                con.executemany("INSERT INTO events VALUES (?,?,?,?,?)", self._events)
+            if self._refs:
+                con.executemany("INSERT INTO refs VALUES (?,?,?,?,?)", self._refs)
+            if self._meta_updates:
+                con.executemany("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
+                                self._meta_updates)
+                self._meta_updates.clear()
+            con.execute("COMMIT")
+        except sqlite3.Error as exc:
+            try:
+                con.execute("ROLLBACK")
+            except sqlite3.Error:
+                pass
+            raise UserError(f"{self.path}: writing the session failed ({exc}); check free "
+                            "disk space") from None
+        self.rows_written += (len(self._batches) + len(self._ticks) + len(self._events))
+        self._batches.clear()
+        self._ticks.clear()
+        self._events.clear()
+        self._refs.clear()
+        self.pending_bytes = 0
+
+    def close(self) -> None:
+        """Commit what is queued, fold the WAL into the main file and close."""
+        if self._con is None:
+            return
+        try:
+            self.commit()
+        finally:
+            con, self._con = self._con, None
+            try:
+                con.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+            except sqlite3.Error:
+                pass
+            con.close()
+
+    def __enter__(self) -> SessionWriter:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+# ---------------------------------------------------------------------------------------
+# reading
+# ---------------------------------------------------------------------------------------
+
+def _damaged(path: str, what: str) -> InputFileError:
+    return InputFileError(path, f"session file is damaged ({what}); {_FIX_HINT}")
+
+
+class SessionReader:
+    """Read-only access to a session file; never writes to it.
+
+    Opened with SQLite's read-only URI.  A cleanly closed session (no ``-wal`` file
+    beside it) is opened ``immutable`` so not even SQLite's side files are created; a
+    session still being recorded, or one whose recorder was killed, has a ``-wal`` file
+    holding its newest rows, which SQLite reads in place (it may create a ``-shm`` index
+    beside it; the session file itself is never modified).
+
+    ``rows_read`` counts every row fetched from the data tables (tests use it to show
+    that a seek does not read the whole file).
+    """
+
+    def __init__(self, path: str | os.PathLike[str]) -> None:
+        self.path = os.fspath(path)
+        self.rows_read = 0
+        self._check_header()
+        wal = self.path + "-wal"
+        immutable = not os.path.exists(wal)
+        uri = Path(os.path.abspath(self.path)).as_uri() + "?mode=ro"
+        if immutable:
+            uri += "&immutable=1"
+        try:
+            self._con = sqlite3.connect(uri, uri=True, isolation_level=None,
+                                        check_same_thread=False)
+        except sqlite3.Error as exc:
+            raise InputFileError(self.path, f"cannot open the session ({exc}); check the file "
+                                 "and its directory are readable") from None
+        try:
+            self._validate()
+        except BaseException:
+            self._con.close()
+            raise
+
+    # -- validation --------------------------------------------------------------------
+    def _check_header(self) -> None:
+        p = self.path
+        if not os.path.exists(p):
+            raise InputFileError(p, "no such file; check the path")
+        if os.path.isdir(p):
+            raise InputFileError(p, f"is a directory; give a {SUFFIX} session file")
+        try:
+            with open(p, "rb") as fh:
+                head = fh.read(100)
+            size = os.path.getsize(p)
+        except OSError as exc:
+            raise InputFileError(p, f"cannot read ({exc.strerror}); check permissions") from None
+        if len(head) < 100 or head[:16] != _SQLITE_MAGIC:
+            if len(head) == 0:
+                raise InputFileError(p, "file is empty, not a lobewatch session; "
+                                     f"{_FIX_HINT}")
+            if len(head) < 100 and _SQLITE_MAGIC.startswith(head[:16]):
+                raise _damaged(p, "truncated inside the file header")
+            raise InputFileError(p, "not a lobewatch session (not an SQLite database); record "
+                                 "one with `lobewatch live --record` or convert a CSV with "
+                                 "`lobewatch import`")
+        app_id = int.from_bytes(head[68:72], "big")
+        if app_id != APPLICATION_ID:
+            raise InputFileError(p, "an SQLite database but not a lobewatch session "
+                                 f"(application id {app_id:#x}); open a {SUFFIX} file "
+                                 "written by lobewatch")
+        version = int.from_bytes(head[60:64], "big")
+        if version > FORMAT_VERSION:
+            raise InputFileError(p, f"session format version {version} is newer than this "
+                                 f"lobewatch reads (up to {FORMAT_VERSION}); upgrade lobewatch")
+        page_size = int.from_bytes(head[16:18], "big")
+        page_size = 65536 if page_size == 1 else page_size
+        n_pages = int.from_bytes(head[28:32], "big")
+        valid_for = int.from_bytes(head[92:96], "big")
+        change = int.from_bytes(head[24:28], "big")
+        if page_size < 512 or page_size & (page_size - 1):
+            raise _damaged(p, "bad page size in the header")
+        if size % page_size:
+            raise _damaged(p, f"size {size} bytes is not a whole number of pages; truncated")
+        if valid_for == change and n_pages and size < n_pages * page_size:
+            raise _damaged(p, f"truncated: {size} bytes of {n_pages * page_size}")
+
+    def _validate(self) -> None:
+        p = self.path
+        try:
+            version = self._con.execute("PRAGMA user_version").fetchone()[0]
+            if version > FORMAT_VERSION:
+                raise InputFileError(p, f"session format version {version} is newer than "
+                                     f"this lobewatch reads (up to {FORMAT_VERSION}); upgrade "
+                                     "lobewatch")
+            names = {r[0] for r in self._con.execute(
+                "SELECT name FROM sqlite_master WHERE type = 'table'")}
+            missing = [t for t in _TABLES if t not in names]
+            if missing:
+                raise InputFileError(p, f"not a complete lobewatch session (no table "
+                                     f"{missing[0]!r}); {_FIX_HINT}")
+            rows = self._con.execute("SELECT key, value FROM meta").fetchall()
+        except sqlite3.DatabaseError as exc:
+            raise _damaged(p, str(exc)) from None
+        meta: dict[str, Any] = {}
+        for key, value in rows:
+            try:
+                meta[key] = json.loads(value)
+            except (TypeError, ValueError):
+                raise _damaged(p, f"metadata {key!r} is not valid JSON") from None
+        fv = meta.get("format_version")
+        if not isinstance(fv, int) or fv < 1:
+            raise _damaged(p, "metadata has no valid format_version")
+        if fv > FORMAT_VERSION:
+            raise InputFileError(p, f"session format version {fv} is newer than this "
+                                 f"lobewatch reads (up to {FORMAT_VERSION}); upgrade lobewatch")
+        self.meta = meta
+
+    # -- queries -----------------------------------------------------------------------
+    def _query(self, sql: str, args: tuple = ()) -> list[tuple]:
+        try:
+            return self._con.execute(sql, args).fetchall()
+        except sqlite3.DatabaseError as exc:
+            raise _damaged(self.path, str(exc)) from None
+
+    def _one(self, sql: str, args: tuple = ()) -> Any:
+        rows = self._query(sql, args)
+        return rows[0][0] if rows else None
+
+    def counts(self) -> dict[str, int]:
+        """Row counts per data table (and total samples)."""
+        return {
+            "batches": int(self._one("SELECT count(*) FROM batches") or 0),
+            "samples": int(self._one("SELECT total(n) FROM batches") or 0),
+            "ticks": int(self._one("SELECT count(*) FROM ticks") or 0),
+            "events": int(self._one("SELECT count(*) FROM events") or 0),
+        }
+
+    def time_span(self) -> TimeSpan | None:
+        """First and last recorded time (batches, ticks and events), by index."""
+        lo: list[float] = []
+        hi: list[float] = []
+        for table, col in (("batches", "rx_t"), ("ticks", "t"), ("events", "t")):
+            a = self._one(f"SELECT min({col}) FROM {table}")
+            b = self._one(f"SELECT max({col}) FROM {table}")
+            if a is not None:
+                lo.append(float(a))
+                hi.append(float(b))
+        if not lo:
+            return None
+        return TimeSpan(min(lo), max(hi))
+
+    @property
+    def has_ticks(self) -> bool:
+        return self._one("SELECT id FROM ticks LIMIT 1") is not None
+
+    def start_id(self, t_from: float) -> int:
+        """Id after which to read so that replay starts at ``t_from``: the last tick
+        before ``t_from`` (or, for a session without ticks, the batch before it)."""
+        row = self._one("SELECT id FROM ticks WHERE t < ? ORDER BY t DESC LIMIT 1", (t_from,))
+        if row is None and not self.has_ticks:
+            row = self._one("SELECT id FROM batches WHERE rx_t < ? ORDER BY rx_t DESC LIMIT 1",
+                            (t_from,))
+        return int(row) if row is not None else 0
+
+    # -- decoding rows -------------------------------------------------------------------
+    def _batch(self, row: tuple) -> SampleBatch:
+        (i, rx_t, _tf, _tl, n, seq, epoch, stream, cal, tb, ab, pb, crc) = row
+        if (not isinstance(tb, bytes) or not isinstance(ab, bytes) or not isinstance(pb, bytes)
+                or len(tb) != 8 * n or len(ab) != 8 * n or len(pb) != 8 * n):
+            raise _damaged(self.path, f"batch {i} has the wrong length")
+        if batch_crc(float(rx_t), int(n), seq, tb, ab, pb) != crc:
+            raise _damaged(self.path, f"batch {i} fails its checksum")
+        return SampleBatch(np.frombuffer(tb, dtype="<f8"), np.frombuffer(ab, dtype="<f8"),
+                           np.frombuffer(pb, dtype="<f8"), rx_t=float(rx_t), seq=seq,
+                           epoch=epoch, stream=stream or "", calibrated=bool(cal))
+
+    def _tick(self, row: tuple) -> SourceStats:
+        i, t, text, crc = row
+        if text_crc(t, text) != crc:
+            raise _damaged(self.path, f"tick {i} fails its checksum")
+        try:
+            return SourceStats.from_dict(json.loads(text))
+        except (TypeError, ValueError, AttributeError):
+            raise _damaged(self.path, f"tick {i} source counters unreadable") from None
+
+    def _event(self, row: tuple) -> Event:
+        i, t, kind, text, crc = row
+        if text_crc(t, kind, text) != crc:
+            raise _damaged(self.path, f"event {i} fails its checksum")
+        try:
+            data = json.loads(text)
+        except (TypeError, ValueError):
+            raise _damaged(self.path, f"event {i} data unreadable") from None
+        return Event(float(t), str(kind), data if isinstance(data, dict) else {"value": data})
+
+    def _rows(self, sql: str, args: tuple) -> Iterator[tuple]:
+        try:
+            cur = self._con.execute(sql, args)
+            for row in cur:
+                self.rows_read += 1
+                yield row
+        except sqlite3.DatabaseError as exc:
+            raise _damaged(self.path, str(exc)) from None
+
+    def iter_items(self, t_from: float | None = None, *, after_id: int | None = None,
+                   kinds: tuple[str, ...] = ("batch", "tick", "event")) -> Iterator[SessionItem]:
+        """Rows in recorded order, starting at ``t_from`` (see :meth:`start_id`) or after
+        row ``after_id``.  Reads lazily: only rows actually consumed are fetched."""
+        start = after_id if after_id is not None else (
+            self.start_id(t_from) if t_from is not None else 0)
+        streams: list[Iterator[SessionItem]] = []
+        if "batch" in kinds:
+            streams.append(SessionItem("batch", r[0], float(r[1]), self._batch(r))
+                           for r in self._rows("SELECT * FROM batches WHERE id > ? ORDER BY id",
+                                               (start,)))
+        if "tick" in kinds:
+            streams.append(SessionItem("tick", r[0], float(r[1]), self._tick(r))
+                           for r in self._rows("SELECT * FROM ticks WHERE id > ? ORDER BY id",
+                                               (start,)))
+        if "event" in kinds:
+            streams.append(SessionItem("event", r[0], float(r[1]), self._event(r))
+                           for r in self._rows("SELECT * FROM events WHERE id > ? ORDER BY id",
+                                               (start,)))
+        if len(streams) == 1:
+            yield from streams[0]
+        else:
+            yield from heapq.merge(*streams, key=lambda it: it.id)
+
+    def iter_batches(self) -> Iterator[SampleBatch]:
+        for r in self._rows("SELECT * FROM batches ORDER BY id", ()):
+            yield self._batch(r)
+
+    def events(self) -> list[Event]:
+        """All events in recorded order."""
+        return [self._event(r) for r in self._rows("SELECT * FROM events ORDER BY id", ())]
+
+    def event_rows(self) -> list[tuple[int, Event]]:
+        """All events with their row ids, in recorded order."""
+        return [(r[0], self._event(r)) for r in self._rows("SELECT * FROM events ORDER BY id",
+                                                           ())]
+
+    def state_before(self, before_id: int) -> tuple[Event | None, tuple[Event, Reference] | None,
+                                                    bool]:
+        """The last target event and the reference in force before row ``before_id``:
+        ``(target_event, (reference_event, reference) or None, reference_cleared)``."""
+        target = None
+        rows = self._query("SELECT * FROM events WHERE id < ? AND kind = 'target' "
+                           "ORDER BY id DESC LIMIT 1", (before_id,))
+        if rows:
+            self.rows_read += 1
+            target = self._event(rows[0])
+        rows = self._query("SELECT * FROM events WHERE id < ? AND kind IN ('reference', "
+                           "'reference_cleared') ORDER BY id DESC LIMIT 1", (before_id,))
+        if not rows:
+            return target, None, False
+        self.rows_read += 1
+        ev = self._event(rows[0])
+        if ev.kind == "reference_cleared":
+            return target, None, True
+        ref = self.reference_for(rows[0][0], ev)
+        return target, ((ev, ref) if ref is not None else None), False
+
+    def reference_for(self, event_id: int, event: Event) -> Reference | None:
+        """The reference trace stored with a ``reference`` event, if any."""
+        rows = self._query("SELECT * FROM refs WHERE event_id = ?", (event_id,))
+        if not rows:
+            return None
+        self.rows_read += 1
+        _i, ab, pb, mtext, crc = rows[0]
+        if zlib.crc32(pb, zlib.crc32(ab)) ^ text_crc(event.t, mtext) != crc or len(ab) != len(pb):
+            raise _damaged(self.path, f"reference of event {event_id} fails its checksum")
+        md = json.loads(mtext)
+        metrics = BeamMetrics(**{k: md.get(k) for k in METRIC_KEYS})
+        return Reference(event.t, np.frombuffer(ab, dtype="<f8").copy(),
+                         np.frombuffer(pb, dtype="<f8").copy(), metrics)
+
+    def neighbour_event(self, t: float, forward: bool) -> Event | None:
+        """The first event strictly after (or before) ``t``, by the time index."""
+        if forward:
+            rows = self._query("SELECT * FROM events WHERE t > ? ORDER BY t, id LIMIT 1", (t,))
+        else:
+            rows = self._query("SELECT * FROM events WHERE t < ? ORDER BY t DESC, id DESC "
+                               "LIMIT 1", (t,))
+        if not rows:
+            return None
+        self.rows_read += 1
+        return self._event(rows[0])
+
+    def close(self) -> None:
+        self._con.close()
+
+    def __enter__(self) -> SessionReader:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def read_all_samples(path: str | os.PathLike[str]) -> SampleBatch:
+    """Every sample of a session as one batch (for ``lobewatch report``).
+
+    ``calibrated`` is true only if every batch was calibrated; ``rx_t`` is the last
+    receive time.
+    """
+    with SessionReader(path) as reader:
+        ts, angles, powers = [], [], []
+        calibrated = True
+        rx_t = 0.0
+        for b in reader.iter_batches():
+            ts.append(b.t)
+            angles.append(b.angle_deg)
+            powers.append(b.power_db)
+            calibrated = calibrated and b.calibrated
+            rx_t = b.rx_t
+    if not angles:
+        empty = np.empty(0, dtype=np.float64)
+        return SampleBatch(empty, empty.copy(), empty.copy(), rx_t=0.0)
+    return SampleBatch(np.concatenate(ts), np.concatenate(angles), np.concatenate(powers),
+                       rx_t=rx_t, calibrated=calibrated)
+
+
+def is_session_file(path: str | os.PathLike[str]) -> bool:
+    """True if the file starts like a lobewatch session (cheap header check only)."""
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(72)
+    except OSError:
+        return False
+    return head[:16] == _SQLITE_MAGIC and int.from_bytes(head[68:72], "big") == APPLICATION_ID
+
+
+def finite_or_none(x: float | None) -> float | None:
+    """``x`` if finite, else None (for JSON-safe metadata)."""
+    return x if x is not None and math.isfinite(x) else None
