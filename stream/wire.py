@@ -1,0 +1,676 @@
+"""Wire format version 1: ZeroMQ messages carrying (t, angle, power) samples.
+
+One SUB socket accepts four shapes of message (see ``docs/wire-format.md``); each may be
+preceded by one topic frame:
+
+* JSON single   ``{"angle_deg": 12.5, "power_dbm": -31.2, "t": 1767225600.125, "seq": 42}``
+* JSON batch    the same keys with arrays of equal length; ``t`` an array, or ``t0``+``dt``
+* binary batch  a JSON header frame ``{"v": 1, "count": N, "dtype": "<f8", "fields": [...]}``
+  followed by one raw little-endian data frame, **field-major** (all N values of the first
+  field, then all N of the second ...), decoded zero-copy with ``np.frombuffer``
+* raw-f32       one frame of interleaved little-endian float32 ``(angle_deg, power_db)``
+  pairs, no header; only when the decoder is built with ``fmt="raw-f32"``.
+
+The :class:`Decoder` never raises: a message it cannot use is dropped and counted under a
+stable snake_case reason (:data:`REJECT_REASONS`).  ``seq`` gaps are counted as lost
+messages per ``(topic, epoch)``; a new ``epoch`` is a publisher restart, and the messages
+missing at the start of the new epoch are the slow-joiner loss (``lost_after_restart``).
+
+Speed: JSON singles are parsed with one ``json.loads`` and a fast path of a few type and
+range checks; consecutive singles of one stream received in one drain are coalesced into
+one :class:`SampleBatch` (:meth:`Decoder.decode_many`) so the estimator sees few large
+batches.  Only a message failing the fast path goes through the detailed checks that name
+the reason.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from stream.batch import SampleBatch
+from stream.tick import SourceStats
+
+#: Wire format version this module speaks.
+WIRE_VERSION: int = 1
+
+#: Accepted angle range, degrees: [ANGLE_MIN_DEG, ANGLE_MAX_DEG).  Angles are kept as sent.
+ANGLE_MIN_DEG: float = -180.0
+ANGLE_MAX_DEG: float = 360.0
+#: Accepted power range, dB (dBm when calibrated), both ends included.
+POWER_MIN_DB: float = -200.0
+POWER_MAX_DB: float = 60.0
+
+#: Default cap on one message's total size, bytes.
+DEFAULT_MAX_MESSAGE_BYTES: int = 4 * 1024 * 1024
+#: Cap on the samples in one message.
+MAX_SAMPLES_PER_MESSAGE: int = 1_000_000
+#: A message has at most this many frames (topic + header + data).
+MAX_PARTS: int = 3
+
+#: Every reason a message can be rejected for, in a stable order.
+REJECT_REASONS: tuple[str, ...] = (
+    "bad_json",         # not UTF-8 JSON, or not a JSON object / header
+    "bad_type",         # a key holds the wrong type (string, bool, nested list, ...)
+    "missing_field",    # no angle_deg, or no power_dbm / power_db
+    "ragged",           # arrays of unequal length
+    "empty",            # zero samples, or an empty frame
+    "non_finite",       # NaN or infinity in t, angle or power
+    "angle_range",      # angle outside [-180, 360) degrees
+    "power_range",      # power outside [-200, +60] dB
+    "unknown_version",  # "v" present and not 1
+    "oversize",         # message bytes or sample count over the cap
+    "too_many_parts",   # more frames than topic + header + data
+    "bad_binary",       # bad binary header or data frame length
+    "internal_error",   # a bug in this module (should stay at zero)
+)
+
+FORMATS: tuple[str, ...] = ("auto", "raw-f32")
+
+_DTYPES = {"<f8": np.dtype("<f8"), "<f4": np.dtype("<f4")}
+_BIN_FIELDS = frozenset({"t", "angle_deg", "power_dbm", "power_db"})
+
+
+class Reject(ValueError):
+    """A message refused for ``reason`` (one of :data:`REJECT_REASONS`)."""
+
+    def __init__(self, reason: str, detail: str = "") -> None:
+        super().__init__(reason if not detail else f"{reason}: {detail}")
+        self.reason = reason
+
+
+#: Placeholder for a frame that failed to parse (already counted).
+_BAD = object()
+
+
+@dataclass
+class _StreamSeq:
+    epoch: str | None
+    last_seq: int
+
+
+# ---------------------------------------------------------------------------------------
+# detailed (slow-path) checks
+# ---------------------------------------------------------------------------------------
+def _is_num(x: Any) -> bool:
+    return (type(x) is float or type(x) is int) and not isinstance(x, bool)
+
+
+def _scalar(obj: dict, key: str) -> float:
+    v = obj[key]
+    if not _is_num(v):
+        raise Reject("bad_type", f"{key} must be a number")
+    v = float(v)
+    if not math.isfinite(v):
+        raise Reject("non_finite", key)
+    return v
+
+
+def _array(v: Any, key: str) -> np.ndarray:
+    """A JSON value (number or list of numbers) as a 1-D float64 array."""
+    if _is_num(v):
+        return np.array([float(v)], dtype=np.float64)
+    if type(v) is not list:
+        raise Reject("bad_type", f"{key} must be a number or an array of numbers")
+    if len(v) > MAX_SAMPLES_PER_MESSAGE:
+        raise Reject("oversize", f"{key} has {len(v)} values")
+    if not v:
+        raise Reject("empty", key)
+    try:
+        arr = np.array(v)
+    except (ValueError, TypeError, OverflowError):
+        raise Reject("bad_type", f"{key} must be a flat array of numbers") from None
+    if arr.ndim != 1 or arr.dtype.kind not in "if":
+        raise Reject("bad_type", f"{key} must be a flat array of numbers")
+    return arr.astype(np.float64, copy=False)
+
+
+def _check_ranges(t: np.ndarray | None, a: np.ndarray, p: np.ndarray) -> None:
+    """Raise the reason for the first failing check (finite, angle, power)."""
+    if t is not None and not np.all(np.isfinite(t)):
+        raise Reject("non_finite", "t")
+    if not (np.all(np.isfinite(a)) and np.all(np.isfinite(p))):
+        raise Reject("non_finite", "angle_deg/power")
+    if not (a.min() >= ANGLE_MIN_DEG and a.max() < ANGLE_MAX_DEG):
+        raise Reject("angle_range", "angle_deg outside [-180, 360)")
+    if not (p.min() >= POWER_MIN_DB and p.max() <= POWER_MAX_DB):
+        raise Reject("power_range", "power outside [-200, +60] dB")
+
+
+def _ranges_ok(a: np.ndarray, p: np.ndarray) -> bool:
+    """Fast vectorised check; NaN fails every comparison, so it fails here too."""
+    amin = a.min()
+    amax = a.max()
+    pmin = p.min()
+    pmax = p.max()
+    return bool(amin >= ANGLE_MIN_DEG and amax < ANGLE_MAX_DEG
+                and pmin >= POWER_MIN_DB and pmax <= POWER_MAX_DB)
+
+
+def _seq_epoch(obj: dict) -> tuple[int | None, str | None]:
+    seq = obj.get("seq")
+    if seq is not None:
+        if type(seq) is not int or seq < 0 or seq >= 2 ** 63:
+            raise Reject("bad_type", "seq must be a non-negative integer")
+    epoch = obj.get("epoch")
+    if epoch is not None:
+        if type(epoch) is int:
+            epoch = str(epoch)
+        elif type(epoch) is not str or len(epoch) > 64:
+            raise Reject("bad_type", "epoch must be a short string or an integer")
+    return seq, epoch
+
+
+def _version(obj: dict) -> None:
+    v = obj.get("v", WIRE_VERSION)
+    if v != WIRE_VERSION or isinstance(v, bool):
+        raise Reject("unknown_version", f"v={v!r}")
+
+
+def _power_key(obj: dict) -> tuple[str, bool]:
+    has_cal = "power_dbm" in obj
+    has_raw = "power_db" in obj
+    if has_cal and has_raw:
+        raise Reject("bad_type", "give power_dbm or power_db, not both")
+    if has_cal:
+        return "power_dbm", True
+    if has_raw:
+        return "power_db", False
+    raise Reject("missing_field", "power_dbm or power_db")
+
+
+def parse_json_object(obj: Any, rx_t: float, stream: str = "") -> SampleBatch:
+    """Validate one decoded JSON object (single or batch) into a batch; raises
+    :class:`Reject` (a ``ValueError``) with the reason."""
+    if type(obj) is not dict:
+        raise Reject("bad_json", "message is not a JSON object")
+    _version(obj)
+    if "angle_deg" not in obj:
+        raise Reject("missing_field", "angle_deg")
+    pkey, calibrated = _power_key(obj)
+    seq, epoch = _seq_epoch(obj)
+    a = _array(obj["angle_deg"], "angle_deg")
+    p = _array(obj[pkey], pkey)
+    if a.shape != p.shape:
+        raise Reject("ragged", f"angle_deg has {a.size} values, {pkey} {p.size}")
+    n = a.size
+    t: np.ndarray | None
+    if "t" in obj and obj["t"] is not None:
+        t = _array(obj["t"], "t")
+        if t.size == 1 and n > 1:
+            raise Reject("ragged", "t has 1 value for several samples; use t0 and dt")
+        if t.size != n:
+            raise Reject("ragged", f"t has {t.size} values, angle_deg {n}")
+    elif "t0" in obj:
+        t0 = _scalar(obj, "t0")
+        dt = _scalar(obj, "dt") if "dt" in obj else 0.0
+        t = t0 + dt * np.arange(n, dtype=np.float64)
+    else:
+        t = None
+    _check_ranges(t, a, p)
+    if t is None:
+        t = np.full(n, float(rx_t))
+    return SampleBatch(t, a, p, rx_t=float(rx_t), seq=seq, epoch=epoch, stream=stream,
+                       calibrated=calibrated)
+
+
+def decode_json_object(obj: Any, rx_t: float) -> SampleBatch:
+    """One JSON object (a parsed line of a JSON Lines file, say) as a batch.
+
+    Raises ``ValueError`` whose ``reason`` attribute (and message start) is one of
+    :data:`REJECT_REASONS`.
+    """
+    return parse_json_object(obj, rx_t)
+
+
+def _parse_binary(header_frame: Any, data_frame: Any, rx_t: float, stream: str,
+                  max_samples: int) -> SampleBatch:
+    try:
+        hdr = json.loads(bytes(header_frame))
+    except (ValueError, RecursionError):
+        raise Reject("bad_json", "binary header is not JSON") from None
+    if type(hdr) is not dict:
+        raise Reject("bad_binary", "binary header is not a JSON object")
+    if "v" not in hdr:
+        raise Reject("bad_binary", "binary header has no v")
+    _version(hdr)
+    count = hdr.get("count")
+    if type(count) is not int:
+        raise Reject("bad_binary", "count must be an integer")
+    if count <= 0:
+        raise Reject("empty" if count == 0 else "bad_binary", "count")
+    if count > max_samples:
+        raise Reject("oversize", f"count {count}")
+    dname = hdr.get("dtype", "<f8")
+    dtype = _DTYPES.get(dname) if type(dname) is str else None
+    if dtype is None:
+        raise Reject("bad_binary", "dtype must be '<f8' or '<f4'")
+    fields = hdr.get("fields")
+    if (type(fields) is not list or not fields or len(fields) > 8
+            or any(type(f) is not str for f in fields) or len(set(fields)) != len(fields)):
+        raise Reject("bad_binary", "fields must be a list of distinct names")
+    if "angle_deg" not in fields:
+        raise Reject("missing_field", "angle_deg")
+    if ("power_dbm" in fields) == ("power_db" in fields):
+        raise Reject("missing_field", "exactly one of power_dbm, power_db")
+    if any(f not in _BIN_FIELDS for f in fields):
+        raise Reject("bad_binary", "unknown field name")
+    seq, epoch = _seq_epoch(hdr)
+    buf = memoryview(data_frame)
+    nf = len(fields)
+    if buf.nbytes != count * nf * dtype.itemsize:
+        raise Reject("bad_binary", f"data frame has {buf.nbytes} bytes, header says "
+                                   f"{count} x {nf} x {dtype.itemsize}")
+    block = np.frombuffer(buf, dtype=dtype).reshape(nf, count)
+    if dtype.itemsize != 8:
+        block = block.astype(np.float64)
+    a = block[fields.index("angle_deg")]
+    calibrated = "power_dbm" in fields
+    p = block[fields.index("power_dbm" if calibrated else "power_db")]
+    if "t" in fields:
+        t = block[fields.index("t")]
+        if not np.isfinite(t).all():
+            raise Reject("non_finite", "t")
+    elif "t0" in hdr:
+        t0 = _scalar(hdr, "t0")
+        dt = _scalar(hdr, "dt") if "dt" in hdr else 0.0
+        t = t0 + dt * np.arange(count, dtype=np.float64)
+    else:
+        t = np.full(count, float(rx_t))
+    if not _ranges_ok(a, p):
+        _check_ranges(None, a, p)
+    return SampleBatch(t, a, p, rx_t=float(rx_t), seq=seq, epoch=epoch, stream=stream,
+                       calibrated=calibrated)
+
+
+def _parse_raw_f32(frame: Any, rx_t: float, stream: str, max_samples: int) -> SampleBatch:
+    buf = memoryview(frame)
+    if buf.nbytes == 0:
+        raise Reject("empty", "empty frame")
+    if buf.nbytes % 8:
+        raise Reject("bad_binary", "raw-f32 frame length is not a multiple of 8")
+    if buf.nbytes // 8 > max_samples:
+        raise Reject("oversize", "too many pairs")
+    pairs = np.frombuffer(buf, dtype="<f4").reshape(-1, 2)
+    a = pairs[:, 0].astype(np.float64)
+    p = pairs[:, 1].astype(np.float64)
+    if not _ranges_ok(a, p):
+        _check_ranges(None, a, p)
+    return SampleBatch(np.full(a.size, float(rx_t)), a, p, rx_t=float(rx_t), stream=stream,
+                       calibrated=False)
+
+
+# ---------------------------------------------------------------------------------------
+# decoder
+# ---------------------------------------------------------------------------------------
+class Decoder:
+    """Turns received ZeroMQ messages into batches, counting what it refuses and loses.
+
+    ``fmt`` is ``"auto"`` (JSON single, JSON batch, binary batch) or ``"raw-f32"``.
+    Counters are cumulative; :meth:`stats` reports them as a :class:`SourceStats`.
+    """
+
+    def __init__(self, fmt: str = "auto",
+                 max_message_bytes: int = DEFAULT_MAX_MESSAGE_BYTES,
+                 max_samples: int = MAX_SAMPLES_PER_MESSAGE) -> None:
+        if fmt not in FORMATS:
+            raise ValueError(f"unknown format {fmt!r}; choose from {', '.join(FORMATS)}")
+        self.fmt = fmt
+        self.max_message_bytes = int(max_message_bytes)
+        self.max_samples = int(max_samples)
+        self.messages = 0
+        self.samples = 0
+        self.rejected: dict[str, int] = {}
+        self.lost = 0
+        self.restarts = 0
+        self.lost_after_restart = 0
+        self._seq: dict[str, _StreamSeq] = {}
+
+    # -- counters ----------------------------------------------------------------------
+    def reject(self, reason: str, n: int = 1) -> None:
+        """Count ``n`` messages refused for ``reason`` (also used by the socket layer)."""
+        self.rejected[reason] = self.rejected.get(reason, 0) + n
+
+    def stats(self, state: str = "waiting") -> SourceStats:
+        return SourceStats(state=state, messages=self.messages, rejected=dict(self.rejected),
+                           lost=self.lost, restarts=self.restarts,
+                           lost_after_restart=self.lost_after_restart)
+
+    def _account(self, stream: str, seq: int | None, epoch: str | None) -> None:
+        """Seq gap accounting for one accepted message."""
+        if seq is None:
+            return
+        st = self._seq.get(stream)
+        if st is None:  # first contact: we joined whenever; nothing to call lost
+            self._seq[stream] = _StreamSeq(epoch, seq)
+            return
+        if epoch != st.epoch or (epoch is None and seq < st.last_seq):
+            # New epoch (or, without epochs, the numbering went back): a restart.  The
+            # messages before this one in the new numbering never arrived: slow joiner.
+            self.restarts += 1
+            self.lost += seq
+            self.lost_after_restart += seq
+            st.epoch = epoch
+            st.last_seq = seq
+            return
+        gap = seq - st.last_seq - 1
+        if gap > 0:
+            self.lost += gap
+        if seq > st.last_seq:
+            st.last_seq = seq
+
+    # -- decoding ----------------------------------------------------------------------
+    def decode(self, frames: Sequence[Any], rx_t: float) -> SampleBatch | None:
+        """Decode one message (its frames); ``None`` when it was rejected.  Never raises."""
+        out = self.decode_many((frames,), rx_t)
+        return out[0] if out else None
+
+    def decode_many(self, messages: Iterable[Sequence[Any]], rx_t: float) -> list[SampleBatch]:
+        """Decode several messages received together, in order.
+
+        Consecutive JSON singles of one stream, epoch and calibration are merged into one
+        batch (their own ``t`` kept per sample), so a drain of thousands of singles costs
+        one estimator update.  Never raises.
+        """
+        out: list[SampleBatch] = []
+        rx = float(rx_t)
+        pending: list[bytes] = []
+        fast = self.fmt == "auto"
+        for frames in messages:
+            try:
+                nparts = len(frames)
+                if fast and nparts == 1:
+                    f = frames[0]
+                    pending.append(f if type(f) is bytes else bytes(f))
+                    continue
+                if pending:
+                    self._singles(pending, rx, out)
+                    pending = []
+                if nparts == 0:
+                    self.reject("empty")
+                    continue
+                if nparts > MAX_PARTS:
+                    self.reject("too_many_parts")
+                    continue
+                self._accept(self._decode_slow(frames, rx), out)
+            except Reject as exc:
+                self.reject(exc.reason)
+            except Exception:  # noqa: BLE001 - the loop must never see a decoder bug
+                self.reject("internal_error")
+        if pending:
+            try:
+                self._singles(pending, rx, out)
+            except Exception:  # noqa: BLE001
+                self.reject("internal_error")
+        return out
+
+    def _load_all(self, payloads: list[bytes]) -> list[Any]:
+        """Parse single-frame JSON messages; a frame that fails is counted and its slot
+        holds ``_BAD``.
+
+        Fast path: when every frame starts with ``{``, ends with ``}`` and holds no other
+        brace, the frames joined by commas inside ``[...]`` parse as a list whose items are
+        exactly the frames (a brace inside a string or a frame that does not close would
+        leave fewer than ``n`` items, which sends the drain to the per-frame path), so one
+        ``json.loads`` call parses the whole drain.
+        """
+        n = len(payloads)
+        max_bytes = self.max_message_bytes
+        if n > 1:
+            ok = True
+            for f in payloads:
+                if f[:1] != b"{" or f[-1:] != b"}" or len(f) > max_bytes:
+                    ok = False
+                    break
+            if ok:
+                joined = b",".join(payloads)
+                if joined.count(b"{") == n and joined.count(b"}") == n:
+                    try:
+                        objs = json.loads("[" + joined.decode() + "]")
+                    except (ValueError, RecursionError):
+                        objs = None
+                    if type(objs) is list and len(objs) == n:
+                        return objs
+        res: list[Any] = []
+        loads = json.loads
+        for f in payloads:
+            if len(f) > max_bytes:
+                self.reject("oversize")
+                res.append(_BAD)
+            elif not f:
+                self.reject("empty")
+                res.append(_BAD)
+            else:
+                try:
+                    res.append(loads(f))
+                except (ValueError, RecursionError):
+                    self.reject("bad_json")
+                    res.append(_BAD)
+        return res
+
+    def _singles(self, payloads: list[bytes], rx: float, out: list[SampleBatch]) -> None:
+        """Decode a run of single-frame JSON messages, merging plain singles."""
+        run_t: list[float] = []
+        run_a: list[float] = []
+        run_p: list[float] = []
+        run_key: tuple[str | None, bool] | None = None
+        run_seq: int | None = None
+        account = self._account
+        seq_state = self._seq.get("")
+
+        def flush() -> None:
+            if run_a:
+                assert run_key is not None
+                out.append(SampleBatch(np.array(run_t, dtype=np.float64),
+                                       np.array(run_a, dtype=np.float64),
+                                       np.array(run_p, dtype=np.float64), rx_t=rx,
+                                       seq=run_seq, epoch=run_key[0], stream="",
+                                       calibrated=run_key[1]))
+                self.samples += len(run_a)
+                run_t.clear()
+                run_a.clear()
+                run_p.clear()
+
+        for obj in self._load_all(payloads):
+            if obj is _BAD:
+                continue
+            try:
+                if type(obj) is dict and "v" not in obj and "t0" not in obj:
+                    a = obj.get("angle_deg")
+                    p = obj.get("power_dbm")
+                    cal = True
+                    if p is None:
+                        p = obj.get("power_db")
+                        cal = False
+                    elif "power_db" in obj:
+                        p = None
+                    t = obj.get("t", rx)
+                    seq = obj.get("seq")
+                    epoch = obj.get("epoch")
+                    ta = type(a)
+                    tp = type(p)
+                    tt = type(t)
+                    if ((ta is float or ta is int) and (tp is float or tp is int)
+                            and (tt is float or tt is int)
+                            and -180.0 <= a < 360.0 and -200.0 <= p <= 60.0
+                            and -1e300 < t < 1e300
+                            and (epoch is None or type(epoch) is str)):
+                        if seq is not None:
+                            if type(seq) is not int or not 0 <= seq < 2 ** 63:
+                                raise Reject("bad_type", "seq")
+                            # in-order fast case inline; anything else goes to _account
+                            if (seq_state is not None and seq_state.epoch == epoch
+                                    and seq == seq_state.last_seq + 1):
+                                seq_state.last_seq = seq
+                            else:
+                                account("", seq, epoch)
+                                seq_state = self._seq.get("")
+                        key = (epoch, cal)
+                        if key != run_key:
+                            flush()
+                            run_key = key
+                        run_t.append(t)
+                        run_a.append(a)
+                        run_p.append(p)
+                        run_seq = seq
+                        self.messages += 1
+                        continue
+                batch = parse_json_object(obj, rx)
+                flush()
+                run_key = None
+                self._accept(batch, out)
+                seq_state = self._seq.get("")
+            except Reject as exc:
+                self.reject(exc.reason)
+                self._account_rejected(obj)
+                seq_state = self._seq.get("")
+            except Exception:  # noqa: BLE001
+                self.reject("internal_error")
+        flush()
+
+    def _account_rejected(self, obj: Any) -> None:
+        """A rejected message whose ``seq`` can be read still advances the numbering, so
+        it is not counted a second time as lost."""
+        if type(obj) is dict:
+            try:
+                seq, epoch = _seq_epoch(obj)
+            except Reject:
+                return
+            self._account("", seq, epoch)
+
+    def _accept(self, batch: SampleBatch, out: list[SampleBatch]) -> None:
+        self.messages += 1
+        self.samples += len(batch)
+        self._account(batch.stream, batch.seq, batch.epoch)
+        out.append(batch)
+
+    def _decode_slow(self, frames: Sequence[Any], rx_t: float) -> SampleBatch:
+        """Any message shape; raises :class:`Reject`."""
+        total = 0
+        for f in frames:
+            total += memoryview(f).nbytes
+        if total > self.max_message_bytes:
+            raise Reject("oversize", f"{total} bytes")
+        nparts = len(frames)
+        stream = ""
+        if self.fmt == "raw-f32":
+            if nparts > 2:
+                raise Reject("too_many_parts")
+            if nparts == 2:
+                stream = _topic(frames[0])
+            return _parse_raw_f32(frames[-1], rx_t, stream, self.max_samples)
+        if nparts == 3:
+            stream = _topic(frames[0])
+            return _parse_binary(frames[1], frames[2], rx_t, stream, self.max_samples)
+        if nparts == 2:
+            first = memoryview(frames[0])
+            if first.nbytes and first[0] == 0x7B:  # '{': header + data
+                return _parse_binary(frames[0], frames[1], rx_t, stream, self.max_samples)
+            stream = _topic(frames[0])
+            payload = frames[1]
+        else:
+            payload = frames[0]
+        if memoryview(payload).nbytes == 0:
+            raise Reject("empty", "empty frame")
+        try:
+            obj = json.loads(bytes(payload))
+        except (ValueError, RecursionError):
+            raise Reject("bad_json") from None
+        return parse_json_object(obj, rx_t, stream)
+
+
+def _topic(frame: Any) -> str:
+    return bytes(frame).decode("utf-8", "replace")
+
+
+# ---------------------------------------------------------------------------------------
+# encoders (publishers, tests, benchmarks)
+# ---------------------------------------------------------------------------------------
+def _power_name(calibrated: bool) -> str:
+    return "power_dbm" if calibrated else "power_db"
+
+
+def _with_topic(topic: bytes | None, frames: list[bytes]) -> list[bytes]:
+    return [topic, *frames] if topic else frames
+
+
+def encode_json_single(angle_deg: float, power_db: float, t: float | None = None,
+                       seq: int | None = None, epoch: str | None = None, *,
+                       calibrated: bool = True, topic: bytes | None = None) -> list[bytes]:
+    """One sample as a JSON single message (list of frames)."""
+    obj: dict[str, Any] = {"angle_deg": float(angle_deg),
+                           _power_name(calibrated): float(power_db)}
+    if t is not None:
+        obj["t"] = float(t)
+    if seq is not None:
+        obj["seq"] = int(seq)
+    if epoch is not None:
+        obj["epoch"] = epoch
+    return _with_topic(topic, [json.dumps(obj, separators=(",", ":")).encode()])
+
+
+def encode_json_batch(angle_deg: np.ndarray, power_db: np.ndarray,
+                      t: np.ndarray | None = None, seq: int | None = None,
+                      epoch: str | None = None, *, t0: float | None = None,
+                      dt: float | None = None, calibrated: bool = True,
+                      topic: bytes | None = None, decimals: int | None = None) -> list[bytes]:
+    """A JSON batch message; give ``t`` (array) or ``t0`` and ``dt``."""
+    a = np.asarray(angle_deg, dtype=np.float64)
+    p = np.asarray(power_db, dtype=np.float64)
+    if decimals is not None:
+        a = np.round(a, decimals)
+        p = np.round(p, decimals)
+    obj: dict[str, Any] = {"v": WIRE_VERSION, "angle_deg": a.tolist(),
+                           _power_name(calibrated): p.tolist()}
+    if t is not None:
+        obj["t"] = np.asarray(t, dtype=np.float64).tolist()
+    elif t0 is not None:
+        obj["t0"] = float(t0)
+        obj["dt"] = float(dt or 0.0)
+    if seq is not None:
+        obj["seq"] = int(seq)
+    if epoch is not None:
+        obj["epoch"] = epoch
+    return _with_topic(topic, [json.dumps(obj, separators=(",", ":")).encode()])
+
+
+def encode_binary_batch(angle_deg: np.ndarray, power_db: np.ndarray,
+                        t: np.ndarray | None = None, seq: int | None = None,
+                        epoch: str | None = None, *, dtype: str = "<f8",
+                        t0: float | None = None, dt: float | None = None,
+                        calibrated: bool = True, topic: bytes | None = None) -> list[bytes]:
+    """A binary batch message: JSON header frame + one field-major data frame."""
+    if dtype not in _DTYPES:
+        raise ValueError("dtype must be '<f8' or '<f4'")
+    cols = []
+    fields = []
+    if t is not None:
+        fields.append("t")
+        cols.append(np.asarray(t, dtype=np.float64))
+    fields += ["angle_deg", _power_name(calibrated)]
+    cols += [np.asarray(angle_deg, dtype=np.float64), np.asarray(power_db, dtype=np.float64)]
+    n = int(cols[-1].size)
+    hdr: dict[str, Any] = {"v": WIRE_VERSION, "count": n, "dtype": dtype, "fields": fields}
+    if t is None and t0 is not None:
+        hdr["t0"] = float(t0)
+        hdr["dt"] = float(dt or 0.0)
+    if seq is not None:
+        hdr["seq"] = int(seq)
+    if epoch is not None:
+        hdr["epoch"] = epoch
+    data = np.stack(cols).astype(_DTYPES[dtype], copy=False).tobytes()
+    return _with_topic(topic, [json.dumps(hdr, separators=(",", ":")).encode(), data])
+
+
+def encode_raw_f32(angle_deg: np.ndarray, power_db: np.ndarray, *,
+                   topic: bytes | None = None) -> list[bytes]:
+    """Interleaved little-endian float32 (angle_deg, power_db) pairs, no header."""
+    pairs = np.empty((np.size(angle_deg), 2), dtype="<f4")
+    pairs[:, 0] = angle_deg
+    pairs[:, 1] = power_db
+    return _with_topic(topic, [pairs.tobytes()])
