@@ -4,7 +4,8 @@ Replay is exact: batches are ingested at their recorded receive times and the
 monitor ticks at the recorded tick times with the recorded source counters, in the
 recorded order, so the estimator, metrics and alarm engine compute what the live run
 computed.  Recorded user actions (reference captured or cleared, target set, markers,
-estimator reset) are re-applied at their times; recorded alarm events are not
+estimator reset) and source status changes are re-applied at their times; recorded
+alarm events are not
 re-emitted, the monitor's own alarm engine judges again (possibly with other
 thresholds).  A session without ticks (an imported file) is ticked on a grid every
 ``interval_s`` of recorded time, plus once at its end.
@@ -180,8 +181,13 @@ class Player:
             m.mark(ev.t, str(d.get("text", "")))
         elif ev.kind == "reset":
             m.reset(ev.t)
-        # "alarm" and "status" events are not replayed: the alarm engine judges again
-        # and the recorded source counters reproduce the status changes.
+        elif ev.kind == "status":
+            # Source status changes were emitted by the live driver through the monitor;
+            # emitting the recorded ones again keeps the tick's event list identical.
+            emit = getattr(m, "emit", None) or getattr(m, "_emit", None)
+            if emit is not None:
+                emit(Event(ev.t, ev.kind, dict(ev.data)))
+        # "alarm" events are not replayed: the monitor's alarm engine judges again.
 
     # -- unpaced ----------------------------------------------------------------------------
     def run_fast(self) -> int:

@@ -460,6 +460,10 @@ class SessionReader:
             "events": int(self._one("SELECT count(*) FROM events") or 0),
         }
 
+    def all_calibrated(self) -> bool:
+        """True when every batch carries calibrated power (dBm)."""
+        return bool(self._one("SELECT coalesce(min(calibrated), 1) FROM batches"))
+
     def time_span(self) -> TimeSpan | None:
         """First and last recorded time (batches, ticks and events), by index."""
         lo: list[float] = []
