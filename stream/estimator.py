@@ -1,0 +1,451 @@
+"""Rolling beam pattern: per-angle-bin power averaged over time, plus sweep detection.
+
+The angle axis is cut into bins over the whole circle, so a steered array (a sector such
+as -60..+60 degrees) and a turning mount (all of [-180, 180)) are handled alike.  Each
+batch is folded in with a handful of vectorised numpy calls (``np.bincount`` with
+weights); nothing loops per sample, and the state is a fixed set of per-bin arrays plus a
+bounded sweep history, so its size is O(bins + history) however long the session runs.
+
+Power is averaged in linear units (mW ratio, ``10**(dB/10)``): averaging dB values would
+bias the pattern low where the signal fades (Jensen's inequality; common practice).
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from stream.batch import SampleBatch, wrap_angle_deg
+from stream.pattern import measure
+
+#: A completed sweep whose samples fill fewer distinct bins than this is not a sweep
+#: (a fly-back, a wrap, jitter at a turning point); its samples stay with the next sweep.
+MIN_SWEEP_BINS: int = 5
+
+#: Smallest retreat from the furthest angle reached that counts as a direction reversal,
+#: degrees.  The working hysteresis is ``max(bin_deg / 2, MIN_REVERSAL_DEG)``, so encoder
+#: jitter of a few tenths of a degree does not split sweeps when the bins are fine.
+MIN_REVERSAL_DEG: float = 0.5
+
+#: ln(10)/10: ``10**(p/10) == exp(p * _DB_TO_NEPER)``, and exp is the cheaper ufunc.
+_DB_TO_NEPER: float = math.log(10.0) / 10.0
+
+_AVERAGING: tuple[str, ...] = ("ema", "sweeps")
+
+
+@dataclass(frozen=True, slots=True)
+class EstimatorConfig:
+    """Settings of the rolling pattern.
+
+    ``bin_deg`` is rounded to the nearest width that divides the circle evenly
+    (``360 / round(360 / bin_deg)``; exact for 0.1, 0.25, 0.5, 1, 2, 5, 10 ...).
+    ``averaging`` is ``"ema"`` (exponential in receive time, time constant ``tau_s``) or
+    ``"sweeps"`` (mean over the last ``sweeps_k`` complete sweeps and the one in
+    progress).  A bin not refreshed for ``stale_after_s`` seconds is left out of the
+    snapshot.  ``history`` sweep records are kept.
+    """
+
+    bin_deg: float = 1.0
+    averaging: str = "ema"
+    tau_s: float = 3.0
+    sweeps_k: int = 3
+    stale_after_s: float = 30.0
+    history: int = 256
+
+    def __post_init__(self) -> None:
+        b = self.bin_deg
+        if not (isinstance(b, int | float) and math.isfinite(b) and 0.1 <= b <= 10.0):
+            raise ValueError(f"bin width must be between 0.1 and 10 degrees, got {b!r}")
+        if self.averaging not in _AVERAGING:
+            raise ValueError(f"averaging must be 'ema' or 'sweeps', got {self.averaging!r}")
+        if not (isinstance(self.tau_s, int | float) and math.isfinite(self.tau_s)
+                and self.tau_s > 0):
+            raise ValueError(f"averaging time constant must be a positive number of seconds, "
+                             f"got {self.tau_s!r}")
+        if isinstance(self.sweeps_k, bool) or not isinstance(self.sweeps_k, int) \
+                or not 1 <= self.sweeps_k <= 1000:
+            raise ValueError(f"sweeps to average must be a whole number from 1 to 1000, "
+                             f"got {self.sweeps_k!r}")
+        if not (isinstance(self.stale_after_s, int | float) and self.stale_after_s > 0
+                and not math.isnan(self.stale_after_s)):
+            raise ValueError(f"bin maximum age must be a positive number of seconds, "
+                             f"got {self.stale_after_s!r}")
+        if isinstance(self.history, bool) or not isinstance(self.history, int) \
+                or not 1 <= self.history <= 1_000_000:
+            raise ValueError(f"sweep history must be a whole number from 1 to 1000000, "
+                             f"got {self.history!r}")
+
+    @property
+    def n_bins(self) -> int:
+        """Number of bins around the circle."""
+        return int(round(360.0 / self.bin_deg))
+
+    @property
+    def bin_width_deg(self) -> float:
+        """The bin width actually used (divides 360 evenly)."""
+        return 360.0 / self.n_bins
+
+
+@dataclass(frozen=True, slots=True)
+class SweepRecord:
+    """One completed sweep, measured on its own samples.
+
+    ``t`` is the receive time at which the sweep was seen to end; ``angle_min_deg`` /
+    ``angle_max_deg`` are the centres of the outermost bins it filled (wrapped angles).
+    """
+
+    t: float
+    peak_angle_deg: float | None
+    hpbw_deg: float | None
+    peak_power_db: float | None
+    angle_min_deg: float
+    angle_max_deg: float
+
+
+@dataclass(frozen=True, slots=True)
+class PatternSnapshot:
+    """The valid bins at time ``t``: centres sorted ascending in [-180, 180), power in dB
+    (dBm when the input was calibrated), both float64 and owned by the snapshot."""
+
+    t: float
+    angle_deg: np.ndarray
+    power_db: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.angle_deg.shape[0])
+
+
+def circular_std_deg(angle_deg: Sequence[float] | np.ndarray) -> float | None:
+    """Sample standard deviation (ddof = 1) of angles, safe across the +-180 wrap.
+
+    Each angle is replaced by its wrapped offset from the circular mean direction
+    atan2(mean sin, mean cos) (N. I. Fisher, *Statistical Analysis of Circular Data*,
+    CUP 1993, sec. 2.2 -- from memory), and the ordinary sample standard deviation of the
+    offsets is returned.  For angles that do not straddle the wrap it equals
+    ``numpy.std(angle_deg, ddof=1)`` exactly up to rounding.  ``None`` for fewer than two.
+    """
+    a = np.asarray(angle_deg, dtype=np.float64).reshape(-1)
+    a = a[np.isfinite(a)]
+    if a.size < 2:
+        return None
+    r = np.deg2rad(a)
+    mean_dir = math.degrees(math.atan2(float(np.mean(np.sin(r))), float(np.mean(np.cos(r)))))
+    dev = wrap_angle_deg(a - mean_dir)
+    return float(np.std(dev, ddof=1))
+
+
+class RollingPattern:
+    """Per-bin linear power, averaged over time or over sweeps, with sweep detection.
+
+    Averaging, for a bin that receives ``m`` samples of mean linear power ``x`` in a batch
+    received at ``now`` (all of a batch's samples count as received at ``now``):
+
+    * ``ema``: with ``dt = now - last_t`` (the bin's previous update time),
+      ``alpha = 1 - exp(-dt / tau_s)`` and ``P <- P + alpha * (x - P)``; the first fill
+      takes ``P = x``.  This is the exact discretisation of the first-order low-pass
+      ``tau dP/dt = x(t) - P`` with ``x`` held since the previous update (A. Eckner,
+      "Algorithms for unevenly spaced time series", 2012 working paper -- from memory),
+      so a step in the input is followed as ``1 - exp(-t/tau)`` whatever the batch
+      timing.  Batches received at the same ``now`` (or earlier than the bin's last
+      update) are pooled with that update: its ``x`` becomes the mean of all their
+      samples, so splitting a batch without changing ``now`` changes nothing.
+    * ``sweeps``: the pooled mean of all samples that fell in the bin during the last
+      ``sweeps_k`` complete sweeps and the sweep in progress (sum and count per bin in a
+      ring of ``sweeps_k`` rows).
+
+    Sweep detection (per sample, causal, so batch boundaries never change it): the
+    wrapped angle is followed with hysteresis ``h = max(bin/2, MIN_REVERSAL_DEG)``.
+    While moving up, a sample more than ``h`` below the highest angle reached ends the
+    sweep (moving down: symmetric).  That one rule catches a back-and-forth reversal, the
+    fly-back of a sawtooth (-60 -> +60, jump to -60) and the wrap of a turning mount
+    (179.9 -> -180), because a wrap is a large step against the direction of travel.
+    The sample that reveals the end starts the next sweep.  A sweep filling fewer than
+    ``MIN_SWEEP_BINS`` bins is not counted; its samples join the next sweep.  Each
+    counted sweep is measured on its own binned samples with ``stream.pattern.measure``.
+    """
+
+    def __init__(self, config: EstimatorConfig | None = None) -> None:
+        self.config = config if config is not None else EstimatorConfig()
+        cfg = self.config
+        self._nb = cfg.n_bins
+        w = cfg.bin_width_deg
+        self._inv_w = 1.0 / w
+        # Bin i covers [centre_i - w/2, centre_i + w/2), centre_i = -180 + i*w; index =
+        # floor((a + 180)/w + 1/2), where the top value n_bins folds onto bin 0 (the wrap).
+        self._centres = -180.0 + w * np.arange(self._nb, dtype=np.float64)
+        self._h = max(0.5 * w, MIN_REVERSAL_DEG)
+        self._inv_tau = 1.0 / float(cfg.tau_s)
+        self._ema = cfg.averaging == "ema"
+        self.reset()
+
+    # -- state ------------------------------------------------------------------------
+    def reset(self) -> None:
+        """Forget everything: bins, sweep in progress, history and counters."""
+        nb = self._nb
+        self._last_t = np.full(nb, -np.inf)           # last update time per bin
+        self._p = np.zeros(nb)                        # ema: averaged linear power
+        self._p_prev = np.zeros(nb)                   # ema: value before the last update
+        self._alpha = np.zeros(nb)                    # ema: weight of the last update
+        self._u_sum = np.zeros(nb)                    # ema: linear sum of the last update
+        self._u_cnt = np.zeros(nb)                    # ema: sample count of the last update
+        self._sw_sum = np.zeros(nb)                   # sweep in progress: sum per bin
+        self._sw_cnt = np.zeros(nb, dtype=np.int64)   # sweep in progress: count per bin
+        k = self.config.sweeps_k if not self._ema else 0
+        self._ring_sum = np.zeros((k, nb))            # sweeps: last K complete sweeps
+        self._ring_cnt = np.zeros((k, nb), dtype=np.int64)
+        self._ring_pos = 0
+        self._tot_sum = np.zeros(nb if k else 0)      # sweeps: sum of the ring rows
+        self._tot_cnt = np.zeros(nb if k else 0, dtype=np.int64)
+        self._now_max = -math.inf                     # latest receive time seen
+        self._dir = 0                                 # +1 up, -1 down, 0 not yet known
+        self._ext = math.nan                          # furthest angle in the direction
+        self._history: deque[SweepRecord] = deque(maxlen=self.config.history)
+        self._sweep_count = 0
+        self._samples = 0
+
+    @property
+    def samples(self) -> int:
+        """Samples taken in since the start or the last reset (non-finite ones dropped)."""
+        return self._samples
+
+    @property
+    def sweep_count(self) -> int:
+        """Sweeps completed since the start or the last reset (not bounded by history)."""
+        return self._sweep_count
+
+    @property
+    def sweeps(self) -> tuple[SweepRecord, ...]:
+        """The most recent sweep records, oldest first, at most ``config.history``."""
+        return tuple(self._history)
+
+    @property
+    def bin_centres_deg(self) -> np.ndarray:
+        """Centres of all bins (a copy), ascending from -180."""
+        return self._centres.copy()
+
+    def peak_angle_spread_deg(self, n: int = 8) -> float | None:
+        """Sample standard deviation of the peak angle over the last ``n`` sweeps that had
+        a peak (circular-safe, see :func:`circular_std_deg`); ``None`` when fewer than 2."""
+        if n < 2:
+            return None
+        peaks: list[float] = []
+        for rec in reversed(self._history):
+            if rec.peak_angle_deg is not None:
+                peaks.append(rec.peak_angle_deg)
+                if len(peaks) == n:
+                    break
+        return circular_std_deg(peaks)
+
+    # -- data in ----------------------------------------------------------------------
+    def update(self, batch: SampleBatch, now: float) -> None:
+        """Fold in one batch whose samples were all received at ``now`` (seconds)."""
+        a = batch.angle_deg
+        p = batch.power_db
+        if a.shape[0] == 0:
+            return
+        lo = float(a.min())
+        hi = float(a.max())
+        if not (-180.0 <= lo and hi < 180.0 and math.isfinite(float(p.sum()))):
+            a, p = _clean(a, p, lo, hi)
+            if a.shape[0] == 0:
+                return
+            lo = float(a.min())
+            hi = float(a.max())
+        now = float(now)
+        nb = self._nb
+        inv_w = self._inv_w
+        self._samples += int(a.shape[0])
+        lin = np.exp(p * _DB_TO_NEPER)
+        # Work on the window of bins [i0, i0 + L) the batch touches, so the cost does
+        # not grow with the number of bins.  Index nb (just below +180) is bin 0.
+        i0 = int((lo + 180.0) * inv_w + 0.5)
+        i1 = int((hi + 180.0) * inv_w + 0.5)
+        seam = i1 >= nb
+        if seam:
+            i0 = 0
+        idx = ((a + 180.0) * inv_w + 0.5).astype(np.intp)
+        if i0:
+            idx -= i0
+        span = i1 - i0 + 1
+        s = np.bincount(idx, weights=lin, minlength=span)
+        c = np.bincount(idx, minlength=span)
+        if seam:
+            s[0] += s[nb]
+            c[0] += c[nb]
+            s = s[:nb]
+            c = c[:nb]
+        win = slice(i0, i0 + s.shape[0])
+
+        bounds = self._boundaries(a, lo, hi)
+        if not bounds:
+            self._sw_sum[win] += s
+            self._sw_cnt[win] += c
+        else:
+            k = 0
+            for b in bounds:
+                if b > k:
+                    self._add_to_sweep(idx[k:b], lin[k:b], win, seam)
+                self._end_sweep(now)
+                k = b
+            self._add_to_sweep(idx[k:], lin[k:], win, seam)
+
+        tl = np.flatnonzero(c)
+        tb = tl + i0 if i0 else tl
+        lt = self._last_t[tb]
+        if self._ema:
+            self._update_ema(tb, s[tl], c[tl].astype(np.float64), lt, now)
+        if now > self._now_max:
+            self._last_t[tb] = now
+            self._now_max = now
+        else:
+            self._last_t[tb] = np.maximum(lt, now)
+
+    def _update_ema(self, tb: np.ndarray, ss: np.ndarray, cs: np.ndarray, lt: np.ndarray,
+                    now: float) -> None:
+        """Apply the recurrence of the class docstring to the touched bins ``tb``."""
+        if now <= self._now_max and (merge := lt >= now).any():
+            pp = np.where(merge, self._p_prev[tb], self._p[tb])
+            al = np.where(merge, self._alpha[tb], -np.expm1((lt - now) * self._inv_tau))
+            ss = ss + np.where(merge, self._u_sum[tb], 0.0)
+            cs = cs + np.where(merge, self._u_cnt[tb], 0.0)
+        else:
+            pp = self._p[tb]
+            # lt = -inf (never filled) gives alpha = 1, hence P = x.
+            al = -np.expm1((lt - now) * self._inv_tau)
+        self._p[tb] = pp + al * (ss / cs - pp)
+        self._p_prev[tb] = pp
+        self._alpha[tb] = al
+        self._u_sum[tb] = ss
+        self._u_cnt[tb] = cs
+
+    def _add_to_sweep(self, idx: np.ndarray, lin: np.ndarray, win: slice, seam: bool) -> None:
+        """Add samples (window-relative bin indices) to the sweep in progress."""
+        if idx.shape[0] == 0:
+            return
+        span = win.stop - win.start + (1 if seam else 0)
+        s = np.bincount(idx, weights=lin, minlength=span)
+        c = np.bincount(idx, minlength=span)
+        if seam:
+            nb = self._nb
+            s[0] += s[nb]
+            c[0] += c[nb]
+            s = s[:nb]
+            c = c[:nb]
+        self._sw_sum[win] += s
+        self._sw_cnt[win] += c
+
+    def _boundaries(self, a: np.ndarray, lo: float, hi: float) -> list[int]:
+        """Indices in ``a`` (wrapped angles, range ``lo..hi``) where a new sweep starts;
+        updates the direction state.  One vectorised scan per boundary found."""
+        h = self._h
+        n = a.shape[0]
+        out: list[int] = []
+        d = self._dir
+        ext = self._ext
+        # Whole batch within h of the furthest point: no reversal possible (common when
+        # the rate is high and a batch spans a fraction of a degree).
+        if d > 0 and lo >= max(ext, hi) - h:
+            self._ext = max(ext, hi)
+            return out
+        if d < 0 and hi <= min(ext, lo) + h:
+            self._ext = min(ext, lo)
+            return out
+        k = 0
+        while k < n:
+            if d == 0:
+                if math.isnan(ext):
+                    ext = float(a[k])
+                    k += 1
+                    continue
+                dev = a[k:] - ext
+                far = np.abs(dev) > h
+                j = int(np.argmax(far))
+                if not far[j]:
+                    break
+                d = 1 if dev[j] > 0 else -1
+                ext = float(a[k + j])
+                k += j + 1
+                continue
+            seg = a[k:]
+            if d > 0:
+                thr = np.maximum.accumulate(seg)
+                np.maximum(thr, ext, out=thr)
+                ext_end = float(thr[-1])
+                thr -= h
+                hit = seg < thr
+            else:
+                thr = np.minimum.accumulate(seg)
+                np.minimum(thr, ext, out=thr)
+                ext_end = float(thr[-1])
+                thr += h
+                hit = seg > thr
+            j = int(np.argmax(hit))
+            if not hit[j]:
+                ext = ext_end
+                break
+            out.append(k + j)
+            d = -d
+            ext = float(a[k + j])
+            k += j + 1
+        self._dir = d
+        self._ext = ext
+        return out
+
+    def _end_sweep(self, now: float) -> None:
+        """Close the sweep in progress: measure and record it, or, if it filled too few
+        bins, keep its samples for the next sweep."""
+        cnt = self._sw_cnt
+        filled = np.flatnonzero(cnt)
+        if filled.shape[0] < MIN_SWEEP_BINS:
+            return
+        sums = self._sw_sum[filled]
+        angle = self._centres[filled]
+        power_db = 10.0 * np.log10(sums / cnt[filled])
+        metrics = measure(angle, power_db)
+        self._history.append(SweepRecord(
+            t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
+            peak_power_db=metrics.peak_power_db, angle_min_deg=float(angle[0]),
+            angle_max_deg=float(angle[-1])))
+        self._sweep_count += 1
+        if not self._ema:
+            pos = self._ring_pos
+            self._ring_sum[pos] = self._sw_sum
+            self._ring_cnt[pos] = cnt
+            self._ring_pos = (pos + 1) % self._ring_sum.shape[0]
+            # Re-summed (not adjusted by difference) so no rounding drift accumulates.
+            self._ring_sum.sum(axis=0, out=self._tot_sum)
+            self._ring_cnt.sum(axis=0, out=self._tot_cnt)
+        self._sw_sum = np.zeros(self._nb)
+        self._sw_cnt = np.zeros(self._nb, dtype=np.int64)
+
+    # -- readout ----------------------------------------------------------------------
+    def snapshot(self, now: float) -> PatternSnapshot:
+        """The valid bins at ``now``: filled and refreshed within ``stale_after_s``."""
+        fresh = self._last_t >= float(now) - self.config.stale_after_s
+        if self._ema:
+            sel = np.flatnonzero(fresh)
+            lin = self._p[sel]
+        else:
+            cnt = self._tot_cnt + self._sw_cnt
+            sel = np.flatnonzero(fresh & (cnt > 0))
+            lin = (self._tot_sum[sel] + self._sw_sum[sel]) / cnt[sel]
+        return PatternSnapshot(t=float(now), angle_deg=self._centres[sel],
+                               power_db=10.0 * np.log10(lin))
+
+
+def _clean(a: np.ndarray, p: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, np.ndarray]:
+    """Angles wrapped into [-180, 180) and samples with a non-finite value dropped."""
+    if -180.0 <= lo and hi < 540.0:  # the usual 0..360 convention: one subtraction
+        a = np.where(a >= 180.0, a - 360.0, a)
+    else:
+        a = wrap_angle_deg(a)
+    p = np.asarray(p, dtype=np.float64)
+    ok = np.isfinite(a) & np.isfinite(p)
+    if not ok.all():
+        a = a[ok]
+        p = p[ok]
+    return a, p
