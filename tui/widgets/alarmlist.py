@@ -1,0 +1,123 @@
+"""The alarm list: active alarms first, each with severity, since when, and the
+measured value against its threshold.
+
+Severity words are the ITU-T X.733 perceived-severity values, shortened but spelt
+out (so the list reads without colour); an acknowledged alarm carries a tick mark.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Sequence
+from typing import Any
+
+from rich.text import Text
+from textual.widgets import Static
+
+#: Short, fixed-width severity tags, most severe first (ITU-T X.733 values).
+SEVERITY_TAGS: dict[str, str] = {
+    "critical": "CRIT", "major": "MAJR", "minor": "MINR", "warning": "WARN",
+    "indeterminate": "INDT", "cleared": "CLRD",
+}
+SEVERITY_ORDER: tuple[str, ...] = tuple(SEVERITY_TAGS)
+
+#: Units of each rule's value, for display.
+RULE_UNITS: dict[str, str] = {
+    "drift": "°", "broadening": "°", "gain_loss": " dB", "sidelobe_rise": " dB",
+    "stale": " s", "input": "/s", "watch": " dB",
+}
+
+
+def _get(obj: Any, *names: str, default: Any = None) -> Any:
+    """First attribute (or mapping key) of ``names`` present on ``obj``."""
+    for n in names:
+        if isinstance(obj, dict) and n in obj:
+            return obj[n]
+        if hasattr(obj, n):
+            return getattr(obj, n)
+    return default
+
+
+def _num(v: Any, unit: str) -> str:
+    if isinstance(v, (int, float)) and math.isfinite(float(v)):
+        return f"{float(v):.1f}{unit}"
+    return "—"
+
+
+def format_alarm(status: Any) -> tuple[str, str, bool]:
+    """(severity, one-line text, acknowledged) of an alarm status object."""
+    severity = str(_get(status, "severity", default="indeterminate")).lower()
+    rule = str(_get(status, "rule", default="?"))
+    state = str(_get(status, "state", default=""))
+    since = _get(status, "since", "since_t", "raised_t", "t_raised", "t")
+    ack = bool(_get(status, "acknowledged", "acked", default=False))
+    unit = RULE_UNITS.get(rule, "")
+    value = _get(status, "value")
+    threshold = _get(status, "threshold")
+    when = time.strftime("%H:%M:%S", time.localtime(float(since))) if since else "--:--:--"
+    name = rule
+    watch = _get(status, "watch_deg")
+    if watch is not None:
+        name = f"{rule}@{float(watch):+.0f}°"
+    text = f"{when} {name} {_num(value, unit)} vs {_num(threshold, unit)}"
+    if state and state not in ("raised", "active"):
+        text += f" ({state})"
+    return severity, text, ack
+
+
+class AlarmList(Static):
+    """Rendered from ``alarms.active()``; shows why it is empty when it is."""
+
+    DEFAULT_CSS = """
+    AlarmList { height: auto; min-height: 1; }
+    """
+
+    def __init__(self, *, name: str | None = None, id: str | None = None,
+                 classes: str | None = None) -> None:
+        super().__init__("", name=name, id=id, classes=classes)
+        self._last_key: object = None
+        self.lines: list[str] = []
+
+    def show(self, engine: Any | None) -> None:
+        """Redraw from the engine's active alarms (``None``: no rules configured)."""
+        if engine is None:
+            self._render_lines([], "no alarm rules configured")
+            return
+        try:
+            active: Sequence[Any] = list(engine.active())
+        except Exception as exc:  # the list must never take the screen down
+            self._render_lines([], f"alarm list unavailable: {exc}")
+            return
+        rows = [format_alarm(a) for a in active]
+        rows.sort(key=lambda r: (SEVERITY_ORDER.index(r[0]) if r[0] in SEVERITY_ORDER
+                                 else len(SEVERITY_ORDER), r[1]))
+        self._render_lines(rows, "no active alarms")
+
+    def _render_lines(self, rows: list[tuple[str, str, bool]], empty: str) -> None:
+        key = (tuple(rows), empty)
+        if key == self._last_key:
+            return
+        self._last_key = key
+        text = Text(no_wrap=True, overflow="ellipsis")
+        self.lines = []
+        if not rows:
+            text.append(empty, style="italic")
+            self.lines.append(empty)
+        for i, (sev, line, ack) in enumerate(rows):
+            if i:
+                text.append("\n")
+            tag = SEVERITY_TAGS.get(sev, sev[:4].upper())
+            text.append(f"{tag}", style=f"bold {_SEV_STYLE.get(sev, '')}".strip())
+            text.append(" ✓ " if ack else " ! ", style="bold")
+            text.append(line)
+            self.lines.append(f"{tag}{' ✓ ' if ack else ' ! '}{line}")
+        self.update(text)
+        self.set_class(bool(rows), "-alarming")
+
+
+#: Colour accents for the severity tag (the tag text itself carries the meaning).
+_SEV_STYLE: dict[str, str] = {
+    "critical": "reverse red", "major": "red", "minor": "yellow", "warning": "yellow",
+    "indeterminate": "", "cleared": "green",
+}

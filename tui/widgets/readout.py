@@ -1,0 +1,191 @@
+"""The numeric readout: a big peak-bearing figure and the beam metrics.
+
+Every label carries a tooltip naming the metric key used in the JSON output,
+session files and reports; a value the data cannot determine shows a dash and its
+tooltip gives the reason.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from textual.app import ComposeResult
+from textual.containers import Grid, Horizontal, Vertical
+from textual.widget import Widget
+from textual.widgets import Digits, Static
+
+from stream.tick import Tick
+
+DASH = "—"
+
+
+@dataclass(frozen=True, slots=True)
+class Field:
+    """One label/value pair: ``key`` names the metric (tooltip), ``label`` is shown."""
+
+    id: str
+    label: str
+    key: str
+    help: str
+
+
+#: The label/value pairs of the grid, in reading order (two pairs per row).
+FIELDS: tuple[Field, ...] = (
+    Field("hpbw", "HPBW", "hpbw_deg", "half-power (-3 dB) beamwidth"),
+    Field("bw10", "−10dB", "bw10_deg", "beamwidth between the -10 dB points"),
+    Field("fnbw", "FNBW", "fnbw_deg", "width between the first nulls either side of the peak"),
+    Field("fb", "F/B", "front_to_back_db", "front-to-back ratio (needs data behind the beam)"),
+    Field("sll", "SLL", "sll_db", "highest side lobe relative to the peak"),
+    Field("slla", "at", "sll_angle_deg", "bearing of the highest side lobe"),
+    Field("pwr", "peak", "peak_power_db", "power at the peak (dBm if calibrated, else dB)"),
+    Field("exp", "model", "expected_hpbw_deg", "HPBW the array model expects"),
+    Field("rate", "rate", "rate_sps", "samples per second taken in"),
+    Field("sweeps", "sweeps", "sweeps", "complete sweeps seen since the start or reset"),
+    Field("lost", "lost", "lost", "messages missing from the sequence numbering"),
+    Field("rej", "rej", "rejected", "messages rejected by the decoder (all reasons)"),
+)
+
+
+def fmt(value: float | None, unit: str = "", digits: int = 1, signed: bool = False) -> str:
+    """A number with its unit, or a dash when it is undetermined."""
+    if value is None or not math.isfinite(value):
+        return DASH
+    s = f"{value:+.{digits}f}" if signed else f"{value:.{digits}f}"
+    return f"{s}{unit}"
+
+
+def fmt_rate(rate_sps: float) -> str:
+    """Samples per second with an SI prefix (S/s, kS/s, MS/s)."""
+    if not math.isfinite(rate_sps) or rate_sps <= 0:
+        return "0 S/s"
+    for div, pre in ((1e6, "M"), (1e3, "k")):
+        if rate_sps >= div:
+            return f"{rate_sps / div:.2f} {pre}S/s"
+    return f"{rate_sps:.0f} S/s"
+
+
+def fmt_count(n: int) -> str:
+    if n >= 10_000_000:
+        return f"{n / 1e6:.0f}M"
+    if n >= 100_000:
+        return f"{n / 1e3:.0f}k"
+    return str(n)
+
+
+def offset_deg(peak: float | None, target: float | None) -> float | None:
+    """Signed peak - target, wrapped to [-180, 180)."""
+    if peak is None or target is None:
+        return None
+    return (peak - target + 180.0) % 360.0 - 180.0
+
+
+class Readout(Widget):
+    """Big peak bearing, its spread and target offset, and the metric grid."""
+
+    DEFAULT_CSS = """
+    Readout { height: auto; }
+    Readout #rd-head { height: 1; }
+    Readout #rd-big { height: 3; }
+    Readout Digits { width: auto; }
+    Readout #rd-side { width: 1fr; padding-left: 1; }
+    Readout #rd-grid { grid-size: 4; grid-columns: 5 1fr 6 1fr; grid-rows: 1;
+                       height: auto; grid-gutter: 0 1; }
+    Readout Static { height: 1; text-wrap: nowrap; text-overflow: ellipsis; }
+    """
+
+    def __init__(self, *, name: str | None = None, id: str | None = None,
+                 classes: str | None = None) -> None:
+        super().__init__(name=name, id=id, classes=classes)
+        self._last: dict[str, str] = {}
+
+    def compose(self) -> ComposeResult:
+        with Horizontal(id="rd-head"):
+            yield Static("PEAK BEARING", id="rd-peak-label", classes="rd-label").with_tooltip(
+                "peak_angle_deg: bearing of the main-lobe maximum (0° = broadside/zero, "
+                "+ clockwise)")
+            yield Static(DASH, id="rd-spread", classes="rd-value").with_tooltip(
+                "peak_angle_spread_deg: spread of the peak bearing over recent sweeps")
+        with Horizontal(id="rd-big"):
+            yield Digits("", id="rd-digits")
+            with Vertical(id="rd-side"):
+                yield Static("°", id="rd-deg")
+                yield Static(DASH, id="rd-target", classes="rd-value").with_tooltip(
+                    "target_deg ± tolerance_deg: the bearing the beam should hold")
+                yield Static(DASH, id="rd-offset", classes="rd-value").with_tooltip(
+                    "offset = peak_angle_deg - target_deg")
+        with Grid(id="rd-grid"):
+            for f in FIELDS:
+                yield Static(f.label, id=f"rd-l-{f.id}", classes="rd-label").with_tooltip(
+                    f"{f.key}: {f.help}")
+                yield Static(DASH, id=f"rd-v-{f.id}", classes="rd-value")
+        yield Static(DASH, id="rd-source", classes="rd-value").with_tooltip(
+            "state: source state (waiting, receiving, stale, ended)")
+
+    # -- updates -----------------------------------------------------------------------
+    def _set(self, wid: str, text: str, tooltip: str | None = None) -> None:
+        if self._last.get(wid) == text:
+            return
+        self._last[wid] = text
+        w = self.query_one(f"#{wid}")
+        if isinstance(w, Digits):
+            w.update(text)
+        else:
+            assert isinstance(w, Static)
+            w.update(text)
+        if tooltip is not None:
+            w.tooltip = tooltip
+
+    def values(self) -> dict[str, str]:
+        """The texts currently shown, by widget id (tests)."""
+        return dict(self._last)
+
+    def show(self, tick: Tick | None) -> None:
+        if tick is None:
+            return
+        m = tick.metrics
+        unit = " dBm" if tick.calibrated else " dB"
+        peak = m.peak_angle_deg
+        self._set("rd-digits", fmt(peak, "", 1, signed=True) if peak is not None else "--")
+        spread = tick.peak_angle_spread_deg
+        self._set("rd-spread", f"±{spread:.2f}° over sweeps" if spread is not None
+                  else "± — over sweeps")
+        if tick.target_deg is not None:
+            tol = tick.tolerance_deg
+            self._set("rd-target", f"tgt {tick.target_deg:+.1f}"
+                      + (f"±{tol:.1f}" if tol else ""))
+            off = offset_deg(peak, tick.target_deg)
+            if off is None:
+                self._set("rd-offset", f"off {DASH}")
+            else:
+                verdict = ""
+                if tol:
+                    verdict = " ok" if abs(off) <= tol else " OUT"
+                self._set("rd-offset", f"off {off:+.1f}°{verdict}")
+        else:
+            self._set("rd-target", "no target")
+            self._set("rd-offset", "")
+        reasons = m.reasons
+
+        def metric(fid: str, key: str, text: str) -> None:
+            tip = reasons.get(key) if text == DASH else None
+            self._set(f"rd-v-{fid}", text, tooltip=tip if tip else "")
+
+        metric("hpbw", "hpbw_deg", fmt(m.hpbw_deg, "°"))
+        metric("bw10", "bw10_deg", fmt(m.bw10_deg, "°"))
+        metric("fnbw", "fnbw_deg", fmt(m.fnbw_deg, "°"))
+        metric("fb", "front_to_back_db", fmt(m.front_to_back_db, " dB"))
+        metric("sll", "sll_db", fmt(m.sll_db, " dB"))
+        metric("slla", "sll_angle_deg", fmt(m.sll_angle_deg, "°", signed=True))
+        metric("pwr", "peak_power_db", fmt(m.peak_power_db, unit))
+        metric("exp", "expected_hpbw_deg", fmt(tick.expected_hpbw_deg, "°"))
+        self._set("rd-v-rate", fmt_rate(tick.rate_sps))
+        self._set("rd-v-sweeps", fmt_count(tick.sweeps))
+        self._set("rd-v-lost", fmt_count(tick.source.lost))
+        self._set("rd-v-rej", fmt_count(tick.source.rejected_total))
+        self._set("rd-source", f"source {tick.source.state}"
+                  + (f" · {fmt_count(tick.samples)} samples" if tick.samples else ""))
+        src = self.query_one("#rd-source")
+        src.set_class(tick.source.state == "stale", "-stale")
+        off_w = self.query_one("#rd-offset")
+        off_w.set_class(self._last.get("rd-offset", "").endswith("OUT"), "-out")

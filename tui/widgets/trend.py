@@ -1,0 +1,111 @@
+"""Peak-angle trend: the per-sweep peak bearings of the last minutes, so a slow drift
+shows before it alarms.  Time runs left to right and ends at the tick's time; the
+target band (target +/- tolerance) is stippled with its centre dashed.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from stream.tick import Tick
+from tui.widgets.braille import BrailleCanvas, CanvasWidget
+from tui.widgets.trace import nice_step
+
+#: Default time window, seconds.
+WINDOW_S = 300.0
+#: Smallest angle span shown, degrees (so noise is not blown up to full height).
+MIN_SPAN_DEG = 4.0
+
+
+class TrendPlot(CanvasWidget):
+    """Sweep peak angle versus time.  Feed it with :meth:`show`."""
+
+    COMPONENT_CLASSES = {"trend--grid", "trend--label", "trend--points", "trend--band",
+                         "trend--empty"}
+
+    DEFAULT_CSS = """
+    TrendPlot { height: 1fr; width: 1fr; }
+    """
+
+    def __init__(self, window_s: float = WINDOW_S, *, name: str | None = None,
+                 id: str | None = None, classes: str | None = None) -> None:
+        super().__init__(name=name, id=id, classes=classes)
+        self.window_s = float(window_s)
+        self.tick: Tick | None = None
+
+    def show(self, tick: Tick | None) -> None:
+        self.tick = tick
+        self.redraw()
+
+    def draw(self, canvas: BrailleCanvas) -> None:
+        tick = self.tick
+        w, h = canvas.width, canvas.height
+        lab = 5
+        has_axis = h >= 4
+        plot_rows = h - (1 if has_axis else 0)
+        px0, px1 = 2 * lab, 2 * w - 1
+        py0, py1 = 0, 4 * plot_rows - 1
+        if px1 - px0 < 4 or plot_rows < 1:
+            return
+        if has_axis:
+            canvas.text(lab, h - 1, f"-{self.window_s / 60:.0f} min", "trend--label")
+            canvas.text(w - 1, h - 1, "now", "trend--label", align="right")
+        if tick is None:
+            canvas.text((w + lab) // 2, plot_rows // 2, "no sweeps yet", "trend--empty",
+                        align="center")
+            return
+        t_end = tick.t
+        t0 = t_end - self.window_s
+        ts = np.asarray(tick.sweep_peak_t, dtype=np.float64)
+        pk = np.asarray(tick.sweep_peaks_deg, dtype=np.float64)
+        keep = (ts >= t0) & np.isfinite(pk)
+        ts, pk = ts[keep], pk[keep]
+        vals = [pk] if pk.size else []
+        if tick.target_deg is not None:
+            tol = tick.tolerance_deg or 0.0
+            vals.append(np.array([tick.target_deg - tol, tick.target_deg + tol]))
+        if not vals:
+            canvas.text((w + lab) // 2, plot_rows // 2, "no sweeps yet", "trend--empty",
+                        align="center")
+            return
+        allv = np.concatenate(vals)
+        lo, hi = float(np.min(allv)), float(np.max(allv))
+        if hi - lo < MIN_SPAN_DEG:
+            mid = 0.5 * (lo + hi)
+            lo, hi = mid - MIN_SPAN_DEG / 2, mid + MIN_SPAN_DEG / 2
+        pad = 0.08 * (hi - lo)
+        lo, hi = lo - pad, hi + pad
+
+        def xd(t: np.ndarray) -> np.ndarray:
+            return px0 + (np.asarray(t) - t0) / self.window_s * (px1 - px0)
+
+        def yd(v: np.ndarray) -> np.ndarray:
+            return py0 + (hi - np.asarray(v)) / (hi - lo) * (py1 - py0)
+
+        grid = canvas.layer("trend--grid")
+        step = nice_step(hi - lo, max(1, min(3, plot_rows)))
+        v = np.ceil(lo / step) * step
+        free_rows: set[int] = set()
+        while v <= hi + 1e-9:
+            y = float(yd(np.array(v)))
+            canvas.line(grid, [px0, px1], [y, y], dash=(1, 5))
+            row = int(np.rint(y)) // 4
+            if row not in free_rows and row < plot_rows:
+                canvas.text(lab - 1, row, f"{v:+.0f}°" if step >= 1 else f"{v:+.1f}",
+                            "trend--label", align="right")
+                free_rows.add(row)
+            v += step
+        if tick.target_deg is not None:
+            band = canvas.layer("trend--band")
+            tol = tick.tolerance_deg or 0.0
+            ya, yb = float(yd(np.array(tick.target_deg + tol))), \
+                float(yd(np.array(tick.target_deg - tol)))
+            yy, xx = np.mgrid[int(max(py0, np.ceil(ya))):int(min(py1, np.floor(yb))) + 1,
+                              px0:px1 + 1]
+            sel = ((xx % 6) == 0) & ((yy % 4) == 1)
+            band[yy[sel], xx[sel]] = True
+            yt = float(yd(np.array(tick.target_deg)))
+            canvas.line(band, [px0, px1], [yt, yt], dash=(3, 3))
+        if ts.size:
+            pts = canvas.layer("trend--points")
+            canvas.line(pts, xd(ts), yd(pk))
