@@ -119,33 +119,31 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
     right, left, k_sl, sl_edge = _lobes(r, pr, ic, pk_db, rise, circular)
     sl = _vertex(r, pr, k_sl, circular) if k_sl is not None and not sl_edge else None
 
-    # Noisy dense data: a 3-point parabola would follow the noise.  When the top of
-    # the main lobe holds enough samples and a least-squares parabola through them
-    # leaves residuals above _NOISE_DB, measure on a moving average instead and take
-    # the peak and side lobe levels from least-squares parabolas on the raw samples.
+    # Noisy data: a 3-point parabola would follow the noise.  When the main lobe above
+    # half power holds enough samples and a least-squares quartic through them (which
+    # fits a clean lobe, steered and asymmetric ones included, to a few mdB) leaves
+    # residuals above _NOISE_DB, take the peak from that quartic, walk a moving
+    # average, and fit the side lobe top by least squares.
     if right.hp is not None and left.hp is not None:
-        half = 0.25 * (right.hp + left.hp)
-        fit = _lsq_vertex(r, pr, 0.5 * (right.hp - left.hp), half, circular)
-        if fit is not None and fit[2] > _NOISE_DB:
-            sigma = fit[2]
-            k = max(3, 2 * (fit[3] // 6) + 1)
-            ps = _moving_average(pr, k, circular)
-            j = int(np.argmax(ps))
-            # Direction from the whole half-power width (noise averages out), level
-            # from the top half of it (where a parabola in dB fits the lobe).
-            wide = _lsq_vertex(r, pr, float(r[j]), 2.0 * half, circular)
-            ctr = wide[0] if wide is not None else float(r[j])
-            fit = _lsq_vertex(r, pr, ctr, half, circular) or fit
-            v_r, pk_db = ctr, fit[1]
+        half = 0.5 * (right.hp + left.hp)
+        top = _poly_peak(r, pr, 0.5 * (right.hp - left.hp), half, circular)
+        if top is not None and top[2] > _NOISE_DB:
+            sigma, cnt = top[2], top[3]
+            top = _poly_peak(r, pr, top[0], half, circular) or top
+            v_r, pk_db = top[0], top[1]
+            k = 2 * (cnt // 12) + 1
+            ps = _moving_average(pr, k, circular) if k >= 3 else pr
+            dist = np.abs(r - v_r)
+            j = int(np.argmin(dist))
             rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
             right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
-            # Offsets from the smoothed peak sample -> offsets from the peak sample.
+            # Offsets from sample j -> offsets from the peak sample.
             right.shift(float(r[j]))
             left.shift(-float(r[j]))
             sl = None
             if k_sl is not None and not sl_edge:
-                f2 = _lsq_vertex(r, pr, float(r[k_sl]), half, circular)
-                sl = (f2[0], f2[1]) if f2 is not None else (float(r[k_sl]), float(ps[k_sl]))
+                f2 = _lsq_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
+                sl = (f2[0], f2[1]) if f2 is not None else _vertex(r, ps, k_sl, circular)
 
     reasons: dict[str, str] = {}
     vals: dict[str, float | None] = dict.fromkeys(METRIC_KEYS)
@@ -201,6 +199,23 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
             f"the data do not cover the back direction ({_wrap(back):.1f} deg, opposite "
             "the peak); sweep the full circle to get the front-to-back ratio")
     return BeamMetrics(**vals, reasons=reasons)  # type: ignore[arg-type]
+
+
+def sweep_arc(angle_deg: np.ndarray) -> tuple[float, float, bool]:
+    """The arc a sweep covers: ``(start_deg, stop_deg, full_circle)``.
+
+    ``stop_deg - start_deg`` is at most 360; a full turn gives ``(-180, 180, True)``.
+    The arc is in the frame :func:`measure` reports in, so a model evaluated on a grid
+    over it is measured the same way as the data (``lobewatch report`` does this).
+    """
+    a = np.asarray(angle_deg, dtype=np.float64).reshape(-1)
+    a = a[np.isfinite(a)]
+    if a.size == 0:
+        raise ValueError("no finite angles")
+    x, _, circular, _ = _frame(a, np.zeros(a.size))
+    if circular:
+        return -180.0, 180.0, True
+    return float(x[0]), float(x[-1]), False
 
 
 # -- helpers -------------------------------------------------------------------------
@@ -347,7 +362,7 @@ def _walk(r: np.ndarray, p: np.ndarray, lvl3: float, lvl10: float, rise: float) 
     if n < 2:
         return s
     below3 = p < lvl3
-    if not below3.any():
+    if below3[0] or not below3.any():
         return s
     j = int(np.argmax(below3))
     q = p[j:]
@@ -455,3 +470,35 @@ def _moving_average(p: np.ndarray, k: int, circular: bool) -> np.ndarray:
     lo = np.maximum(idx - h, 0)
     hi = np.minimum(idx + h + 1, n)
     return (c[hi] - c[lo]) / (hi - lo)
+
+
+def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
+               circular: bool) -> tuple[float, float, float, int] | None:
+    """Maximum of a least-squares quartic (dB) through the samples within ``half`` of
+    ``center``: ``(offset, level, rms residual dB, samples used)``, or ``None`` with
+    fewer than 9 samples."""
+    d = r - center
+    if circular:
+        d = (d + 180.0) % 360.0 - 180.0
+    sel = np.abs(d) <= half
+    cnt = int(np.count_nonzero(sel))
+    if cnt < 9:
+        return None
+    u = d[sel] / half
+    y = p[sel]
+    v = np.vander(u, 5)
+    coef, *_ = np.linalg.lstsq(v, y, rcond=None)
+    res = y - v @ coef
+    rms = float(np.sqrt(np.mean(res * res)))
+    ug = np.linspace(-1.0, 1.0, 401)
+    yg = np.polyval(coef, ug)
+    g = int(np.argmax(yg))
+    ub, yb = float(ug[g]), float(yg[g])
+    if 0 < g < ug.size - 1:  # refine on the grid with the 3-point parabola
+        y0, y1, y2 = yg[g - 1], yg[g], yg[g + 1]
+        den = y0 - 2.0 * y1 + y2
+        if den < 0.0:
+            du = 0.5 * (y0 - y2) / den
+            ub = float(ug[g] + du * (ug[1] - ug[0]))
+            yb = float(np.polyval(coef, ub))
+    return center + ub * half, yb, rms, cnt
