@@ -95,7 +95,8 @@ class SweepRecord:
     """One completed sweep, measured on its own samples.
 
     ``t`` is the receive time at which the sweep was seen to end; ``angle_min_deg`` /
-    ``angle_max_deg`` are the centres of the outermost bins it filled (wrapped angles).
+    ``angle_max_deg`` are the lowest and highest sample angles in it (wrapped to
+    [-180, 180), so a full turn of a mount spans about -180 .. 180).
     """
 
     t: float
@@ -194,6 +195,8 @@ class RollingPattern:
         self._u_cnt = np.zeros(nb)                    # ema: sample count of the last update
         self._sw_sum = np.zeros(nb)                   # sweep in progress: sum per bin
         self._sw_cnt = np.zeros(nb, dtype=np.int64)   # sweep in progress: count per bin
+        self._sw_lo = math.inf                        # sweep in progress: angle range
+        self._sw_hi = -math.inf
         k = self.config.sweeps_k if not self._ema else 0
         self._ring_sum = np.zeros((k, nb))            # sweeps: last K complete sweeps
         self._ring_cnt = np.zeros((k, nb), dtype=np.int64)
@@ -284,14 +287,16 @@ class RollingPattern:
         if not bounds:
             self._sw_sum[win] += s
             self._sw_cnt[win] += c
+            self._sw_lo = min(self._sw_lo, lo)
+            self._sw_hi = max(self._sw_hi, hi)
         else:
             k = 0
-            for b in bounds:
+            for b in (*bounds, a.shape[0]):
                 if b > k:
-                    self._add_to_sweep(idx[k:b], lin[k:b], win, seam)
-                self._end_sweep(now)
+                    self._add_to_sweep(a[k:b], idx[k:b], lin[k:b], win, seam)
+                if b < a.shape[0]:
+                    self._end_sweep(now)
                 k = b
-            self._add_to_sweep(idx[k:], lin[k:], win, seam)
 
         tl = np.flatnonzero(c)
         tb = tl + i0 if i0 else tl
@@ -322,10 +327,11 @@ class RollingPattern:
         self._u_sum[tb] = ss
         self._u_cnt[tb] = cs
 
-    def _add_to_sweep(self, idx: np.ndarray, lin: np.ndarray, win: slice, seam: bool) -> None:
+    def _add_to_sweep(self, a: np.ndarray, idx: np.ndarray, lin: np.ndarray, win: slice,
+                      seam: bool) -> None:
         """Add samples (window-relative bin indices) to the sweep in progress."""
-        if idx.shape[0] == 0:
-            return
+        self._sw_lo = min(self._sw_lo, float(a.min()))
+        self._sw_hi = max(self._sw_hi, float(a.max()))
         span = win.stop - win.start + (1 if seam else 0)
         s = np.bincount(idx, weights=lin, minlength=span)
         c = np.bincount(idx, minlength=span)
@@ -408,8 +414,8 @@ class RollingPattern:
         metrics = measure(angle, power_db)
         self._history.append(SweepRecord(
             t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
-            peak_power_db=metrics.peak_power_db, angle_min_deg=float(angle[0]),
-            angle_max_deg=float(angle[-1])))
+            peak_power_db=metrics.peak_power_db, angle_min_deg=self._sw_lo,
+            angle_max_deg=self._sw_hi))
         self._sweep_count += 1
         if not self._ema:
             pos = self._ring_pos
@@ -421,6 +427,8 @@ class RollingPattern:
             self._ring_cnt.sum(axis=0, out=self._tot_cnt)
         self._sw_sum = np.zeros(self._nb)
         self._sw_cnt = np.zeros(self._nb, dtype=np.int64)
+        self._sw_lo = math.inf
+        self._sw_hi = -math.inf
 
     # -- readout ----------------------------------------------------------------------
     def snapshot(self, now: float) -> PatternSnapshot:
@@ -439,10 +447,11 @@ class RollingPattern:
 
 def _clean(a: np.ndarray, p: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, np.ndarray]:
     """Angles wrapped into [-180, 180) and samples with a non-finite value dropped."""
-    if -180.0 <= lo and hi < 540.0:  # the usual 0..360 convention: one subtraction
-        a = np.where(a >= 180.0, a - 360.0, a)
-    else:
-        a = wrap_angle_deg(a)
+    with np.errstate(invalid="ignore"):
+        if -180.0 <= lo and hi < 540.0:  # the usual 0..360 convention: one subtraction
+            a = np.where(a >= 180.0, a - 360.0, a)
+        else:
+            a = wrap_angle_deg(a)
     p = np.asarray(p, dtype=np.float64)
     ok = np.isfinite(a) & np.isfinite(p)
     if not ok.all():
