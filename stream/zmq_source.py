@@ -142,7 +142,7 @@ class ZmqSource:
                             "(is the port in use?)") from None
         self._sock = s
         self._mon = mon
-        self._asock = zmq.asyncio.Socket.from_socket(s)
+        self._asock = None  # the asyncio view is made inside the running loop
         self._discarding = False
         self._need_reopen = False
 
@@ -244,7 +244,9 @@ class ZmqSource:
                     return
                 self._reopen()
             asock = self._asock
-            assert asock is not None
+            if asock is None:
+                assert self._sock is not None
+                asock = self._asock = zmq.asyncio.Socket.from_socket(self._sock)
             try:
                 ready = await asock.poll(self.poll_ms, zmq.POLLIN)
             except zmq.ZMQError:
