@@ -33,7 +33,7 @@ Definitions (IEEE Std 145 terms; the procedures are common practice):
 Angles are reported in the input's own frame for a sector sweep that does not cross
 the +/-180 (or 0/360) seam; a full turn, or a sweep across the seam, is reported in
 [-180, 180).  A full turn is recognised when no gap around the circle exceeds
-``_CIRCLE_GAP_FACTOR`` times the median step; it then has no edges, and a beam at
+``_CIRCLE_GAP_FACTOR`` times the mean of the other steps; it then has no edges, and a beam at
 +/-180 deg is one lobe.
 """
 
@@ -51,7 +51,7 @@ BACK_WINDOW_DEG: float = 10.0
 BACK_COVER_DEG: float = 5.0
 #: Angles closer than this are the same angle (averaged in linear power), deg.
 DUPLICATE_TOL_DEG: float = 1e-9
-#: A sweep closes the circle when its largest gap is at most this many median steps.
+#: A sweep closes the circle when its largest gap is at most this many typical steps.
 _CIRCLE_GAP_FACTOR: float = 2.0
 #: Power spread below which a pattern is flat (no beam), dB.
 _FLAT_DB: float = 1e-9
@@ -94,7 +94,7 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         return BeamMetrics.empty(
             f"all {n} angles have the same power ({p[0]:.2f} dB): there is no beam to measure")
 
-    i = int(np.argmax(p))
+    i = int(p.argmax())
     if not circular and (i == 0 or i == n - 1):
         edge = _out(x[i], report_wrapped)
         return BeamMetrics.empty(
@@ -126,15 +126,17 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
     # average, and fit the side lobe top by least squares.
     if right.hp is not None and left.hp is not None:
         half = 0.5 * (right.hp + left.hp)
-        top = _poly_peak(r, pr, 0.5 * (right.hp - left.hp), half, circular)
+        ctr = 0.5 * (right.hp - left.hp)
+        top = _poly_peak(r, pr, ctr, half, circular, rms_only=True)
         if top is not None and top[2] > _NOISE_DB:
             sigma, cnt = top[2], top[3]
+            top = _poly_peak(r, pr, ctr, half, circular) or top
             top = _poly_peak(r, pr, top[0], half, circular) or top
             v_r, pk_db = top[0], top[1]
             k = 2 * (cnt // 12) + 1
             ps = _moving_average(pr, k, circular) if k >= 3 else pr
             dist = np.abs(r - v_r)
-            j = int(np.argmin(dist))
+            j = int(dist.argmin())
             rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
             right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
             # Offsets from sample j -> offsets from the peak sample.
@@ -254,9 +256,9 @@ def _frame(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool, 
     gaps = np.empty(n)
     gaps[:-1] = np.diff(ws)
     gaps[-1] = ws[0] + 360.0 - ws[-1]
-    med = float(np.median(gaps))
-    g = int(np.argmax(gaps))
-    if gaps[g] <= _CIRCLE_GAP_FACTOR * med:
+    g = int(gaps.argmax())
+    typical = (360.0 - gaps[g]) / (n - 1)  # mean step without the largest gap
+    if gaps[g] <= _CIRCLE_GAP_FACTOR * typical:
         return ws, ps, True, True
     amin = float(a.min())
     amax = float(a.max())
@@ -313,7 +315,8 @@ def _hysteresis_db(p: np.ndarray) -> float:
     if p.size < 5:
         return _RISE_MIN_DB
     d2 = p[2:] - 2.0 * p[1:-1] + p[:-2]
-    sigma = 1.4826 * float(np.median(np.abs(d2))) / np.sqrt(6.0)
+    stride = -(-d2.size // 512)  # a subsample of <= 512 values is plenty for a median
+    sigma = 1.4826 * _median(np.abs(d2[::stride])) / np.sqrt(6.0)
     return float(np.clip(_RISE_NOISE_FACTOR * sigma, _RISE_MIN_DB, _RISE_MAX_DB))
 
 
@@ -345,10 +348,10 @@ def _crossing(r: np.ndarray, p: np.ndarray, level: float, stop: int) -> float | 
     below = seg < level
     if not below.any():
         return None
-    j = int(np.argmax(below))  # first sample below; j >= 1 since p[0] is the peak
+    j = int(below.argmax())  # first sample below; j >= 1 since p[0] is the peak
     inner = r[j - 1] + (level - p[j - 1]) * (r[j] - r[j - 1]) / (p[j] - p[j - 1])
     above = ~below
-    q = seg.size - 1 - int(np.argmax(above[::-1]))  # last sample at/above the level
+    q = seg.size - 1 - int(above[::-1].argmax())  # last sample at/above the level
     if q >= seg.size - 1:
         return float(inner)
     outer = r[q] + (level - p[q]) * (r[q + 1] - r[q]) / (p[q + 1] - p[q])
@@ -364,14 +367,14 @@ def _walk(r: np.ndarray, p: np.ndarray, lvl3: float, lvl10: float, rise: float) 
     below3 = p < lvl3
     if below3[0] or not below3.any():
         return s
-    j = int(np.argmax(below3))
+    j = int(below3.argmax())
     q = p[j:]
     runmin = np.minimum.accumulate(q)
     up = (q - runmin) > rise
     stop = n - 1
     if up.any():
-        k = int(np.argmax(up))
-        nidx = j + int(np.argmin(q[:k]))
+        k = int(up.argmax())
+        nidx = j + int(q[:k].argmin())
         s.null_idx = nidx
         s.null = _null_offset(r, p, nidx)
         stop = nidx
@@ -472,11 +475,18 @@ def _moving_average(p: np.ndarray, k: int, circular: bool) -> np.ndarray:
     return (c[hi] - c[lo]) / (hi - lo)
 
 
+def _median(x: np.ndarray) -> float:
+    """Median (upper one for even sizes), without np.median's overhead."""
+    return float(np.sort(x)[x.size // 2])  # sort: partition is slow on equal values
+
+
 def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
-               circular: bool) -> tuple[float, float, float, int] | None:
+               circular: bool, rms_only: bool = False
+               ) -> tuple[float, float, float, int] | None:
     """Maximum of a least-squares quartic (dB) through the samples within ``half`` of
     ``center``: ``(offset, level, rms residual dB, samples used)``, or ``None`` with
-    fewer than 9 samples."""
+    fewer than 9 samples.  With ``rms_only`` the maximum is not searched (offset and
+    level are then NaN)."""
     d = r - center
     if circular:
         d = (d + 180.0) % 360.0 - 180.0
@@ -487,18 +497,24 @@ def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
     u = d[sel] / half
     y = p[sel]
     v = np.vander(u, 5)
-    coef, *_ = np.linalg.lstsq(v, y, rcond=None)
+    vt = v.T
+    try:
+        coef = np.linalg.solve(vt @ v, vt @ y)
+    except np.linalg.LinAlgError:
+        return None
     res = y - v @ coef
-    rms = float(np.sqrt(np.mean(res * res)))
+    rms = float(np.sqrt(res @ res / cnt))
+    if rms_only:
+        return float("nan"), float("nan"), rms, cnt
+    c4, c3, c2, c1, c0 = (float(c) for c in coef)
     ug = np.linspace(-1.0, 1.0, 401)
-    yg = np.polyval(coef, ug)
-    g = int(np.argmax(yg))
+    yg = (((c4 * ug + c3) * ug + c2) * ug + c1) * ug + c0
+    g = int(yg.argmax())
     ub, yb = float(ug[g]), float(yg[g])
     if 0 < g < ug.size - 1:  # refine on the grid with the 3-point parabola
         y0, y1, y2 = yg[g - 1], yg[g], yg[g + 1]
         den = y0 - 2.0 * y1 + y2
         if den < 0.0:
-            du = 0.5 * (y0 - y2) / den
-            ub = float(ug[g] + du * (ug[1] - ug[0]))
-            yb = float(np.polyval(coef, ub))
+            ub = float(ug[g] + 0.5 * (y0 - y2) / den * (ug[1] - ug[0]))
+            yb = (((c4 * ub + c3) * ub + c2) * ub + c1) * ub + c0
     return center + ub * half, yb, rms, cnt

@@ -1,0 +1,183 @@
+"""The per-file beam report: a side-by-side text table and JSON records.
+
+Pure formatting: the caller reads the files and measures them; this module only turns
+:class:`ReportEntry` values into text.  Model levels are relative to the model's own
+peak (0 dB), so no measured - expected difference is given for the peak power.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+from stream.array_model import ArrayModel
+from stream.beam import METRIC_KEYS, BeamMetrics
+
+#: Row labels with units; ``{p}`` is the unit of the peak power (dBm or dB).
+LABELS: dict[str, str] = {
+    "peak_angle_deg": "peak direction (deg)",
+    "peak_power_db": "peak power ({p})",
+    "hpbw_deg": "half-power beamwidth (deg)",
+    "hpbw_left_deg": "  half-power left edge (deg)",
+    "hpbw_right_deg": "  half-power right edge (deg)",
+    "bw10_deg": "-10 dB beamwidth (deg)",
+    "fnbw_deg": "first-null beamwidth (deg)",
+    "sll_db": "side lobe level (dB re peak)",
+    "sll_angle_deg": "  side lobe direction (deg)",
+    "front_to_back_db": "front-to-back ratio (dB)",
+}
+
+#: Metrics that are directions: their differences wrap to [-180, 180).
+ANGLE_KEYS: frozenset[str] = frozenset(
+    {"peak_angle_deg", "hpbw_left_deg", "hpbw_right_deg", "sll_angle_deg"})
+
+#: Decimals shown in the table per metric.
+_DECIMALS = 2
+#: Decimals kept in JSON (far below any measurement's accuracy).
+JSON_DECIMALS = 4
+
+MISSING = "n/a"
+
+
+@dataclass(frozen=True, slots=True)
+class ReportEntry:
+    """One measured file, and optionally what the array model expects over its span."""
+
+    source: str
+    metrics: BeamMetrics
+    samples: int
+    angle_min_deg: float
+    angle_max_deg: float
+    calibrated: bool = True
+    model: ArrayModel | None = None
+    expected: BeamMetrics | None = None
+    notes: tuple[str, ...] = field(default=())
+
+
+def difference(key: str, measured: float | None, expected: float | None) -> float | None:
+    """measured - expected (angles wrapped to [-180, 180)); ``None`` if either is
+    missing or the metric is the absolute peak power."""
+    if measured is None or expected is None or key == "peak_power_db":
+        return None
+    d = measured - expected
+    if key in ANGLE_KEYS:
+        d = (d + 180.0) % 360.0 - 180.0
+    return d
+
+
+def _fmt(v: float | None, decimals: int = _DECIMALS, signed: bool = False) -> str:
+    if v is None:
+        return MISSING
+    if abs(v) < 0.5 * 10.0 ** -decimals:
+        v = 0.0
+    return f"{v:+.{decimals}f}" if signed else f"{v:.{decimals}f}"
+
+
+def format_table(entries: list[ReportEntry]) -> str:
+    """A readable table: one row per metric, one column group per file.
+
+    With a model, each file gets three columns: measured, model and
+    measured - model.  Undetermined values read ``n/a [k]``; note k under the table
+    says why.
+    """
+    if not entries:
+        return ""
+    with_model = any(e.expected is not None for e in entries)
+    units = {e.calibrated for e in entries}
+    p_unit = "dBm" if units == {True} else "dB" if units == {False} else "dBm or dB"
+    labels = [LABELS[k].format(p=p_unit) for k in METRIC_KEYS]
+    head_rows = ["samples", "angle span (deg)"]
+
+    notes: list[str] = []
+    note_index: dict[tuple[str, str], int] = {}
+
+    def note(source: str, reason: str) -> str:
+        key = (source, reason)
+        if key not in note_index:
+            notes.append(f"[{len(notes) + 1}] {source}: {reason}")
+            note_index[key] = len(notes)
+        return f"{MISSING} [{note_index[key]}]"
+
+    # Columns: list of (title, cells for head rows + metric rows).
+    columns: list[tuple[str, list[str]]] = []
+    for e in entries:
+        m = e.metrics.to_dict()
+        meas = [str(e.samples), f"{_fmt(e.angle_min_deg, 1)} .. {_fmt(e.angle_max_deg, 1)}"]
+        for k in METRIC_KEYS:
+            v = m[k]
+            meas.append(_fmt(v) if v is not None
+                        else note(e.source, e.metrics.reasons.get(k, "not determined")))
+        columns.append((e.source if not with_model else f"{e.source} measured", meas))
+        if with_model:
+            x = e.expected.to_dict() if e.expected is not None else dict.fromkeys(METRIC_KEYS)
+            exp = ["", ""]
+            dif = ["", ""]
+            for k in METRIC_KEYS:
+                if k == "peak_power_db":
+                    exp.append("0 (ref)" if x[k] is not None else MISSING)
+                    dif.append("")
+                    continue
+                exp.append(_fmt(x[k]))
+                d = difference(k, m[k], x[k])
+                dif.append(_fmt(d, signed=True) if d is not None else "")
+            columns.append(("model", exp))
+            columns.append(("meas - model", dif))
+
+    row_labels = head_rows + labels
+    lw = max(len(s) for s in row_labels)
+    widths = [max(len(title), *(len(c) for c in cells)) for title, cells in columns]
+    out = [" " * lw + "".join("  " + t.rjust(w) for (t, _), w in zip(columns, widths,
+                                                                   strict=True))]
+    for r, label in enumerate(row_labels):
+        out.append(label.ljust(lw) + "".join("  " + cells[r].rjust(w)
+                                             for (_, cells), w in zip(columns, widths,
+                                                                      strict=True)))
+    if with_model:
+        models = {_model_text(e.model) for e in entries if e.model is not None}
+        for text in sorted(models):
+            out.append("")
+            out.append(f"model: {text}; model levels relative to its own peak; expected "
+                       "values measured over each file's angle span")
+    extra = [f"{e.source}: {n}" for e in entries for n in e.notes]
+    if notes or extra:
+        out.append("")
+        out.extend(notes)
+        out.extend(extra)
+    return "\n".join(out) + "\n"
+
+
+def _model_text(model: ArrayModel | None) -> str:
+    if model is None:
+        return ""
+    return (f"{model.n_elements} elements, spacing {model.spacing_wl:g} wavelength, "
+            f"element cos^{model.element_exp:g}, steered {model.steer_deg:g} deg, "
+            f"taper {model.taper}")
+
+
+def _round(v: float | None) -> float | None:
+    if v is None or not math.isfinite(v):
+        return None
+    r = round(float(v), JSON_DECIMALS)
+    return 0.0 if r == 0 else r
+
+
+def json_record(entry: ReportEntry) -> dict[str, Any]:
+    """The ``--json`` object for one file: source, samples, angle span, the metric keys
+    and, with a model, ``model`` = {parameters, expected}."""
+    rec: dict[str, Any] = {
+        "source": entry.source,
+        "samples": int(entry.samples),
+        "angle_min_deg": _round(entry.angle_min_deg),
+        "angle_max_deg": _round(entry.angle_max_deg),
+    }
+    for k, v in entry.metrics.to_dict().items():
+        rec[k] = _round(v)
+    if entry.model is not None:
+        exp = entry.expected.to_dict() if entry.expected is not None \
+            else dict.fromkeys(METRIC_KEYS)
+        rec["model"] = {
+            "parameters": entry.model.to_dict(),
+            "expected": {k: _round(v) for k, v in exp.items()},
+        }
+    return rec
