@@ -158,6 +158,14 @@ class LobewatchApp(App[int]):
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
+        # Keep references: app-level queries search the *active* screen (help page...).
+        self.w_status = self.query_one(StatusLine)
+        self.w_polar = self.query_one(PolarPlot)
+        self.w_trace = self.query_one(TracePlot)
+        self.w_trend = self.query_one(TrendPlot)
+        self.w_readout = self.query_one(Readout)
+        self.w_alarms = self.query_one(AlarmList)
+        self.w_body = self.query_one("#body")
         self.query_one("#trace").border_title = "power vs bearing"
         self.query_one("#trend").border_title = "peak bearing · 5 min"
         self.query_one("#alarms").border_title = "alarms"
@@ -193,18 +201,18 @@ class LobewatchApp(App[int]):
         now = time.monotonic()
         if tick is not self._shown:
             self._shown_at = now
-        self.query_one(StatusLine).show(tick, self.status_info(tick, now))
+        self.w_status.show(tick, self.status_info(tick, now))
         if not self.display_paused and tick is not self._shown:
             self.show_tick(tick)
-        self.query_one(AlarmList).show(getattr(self.monitor, "alarms", None))
+        self.w_alarms.show(getattr(self.monitor, "alarms", None))
 
     def show_tick(self, tick: Tick | None) -> None:
         """Push one tick into every widget (the refresh timer and tests call this)."""
         self._shown = tick
-        self.query_one(PolarPlot).show(tick)
-        self.query_one(TracePlot).show(tick)
-        self.query_one(TrendPlot).show(tick)
-        self.query_one(Readout).show(tick)
+        self.w_polar.show(tick)
+        self.w_trace.show(tick)
+        self.w_trend.show(tick)
+        self.w_readout.show(tick)
 
     def status_info(self, tick: Tick | None, now: float | None = None) -> StatusInfo:
         now = time.monotonic() if now is None else now
@@ -312,13 +320,12 @@ class LobewatchApp(App[int]):
         self.notify("Estimator reset: the pattern builds up again from new samples.")
 
     def action_toggle_scale(self) -> None:
-        scale = self.query_one(PolarPlot).toggle_scale()
+        scale = self.w_polar.toggle_scale()
         self.notify(f"Polar radius: {'dB' if scale == 'db' else 'linear power'}.",
                     timeout=2)
 
     def action_swap_view(self) -> None:
-        body = self.query_one("#body")
-        body.toggle_class("-trace-first")
+        self.w_body.toggle_class("-trace-first")
 
     def action_acknowledge(self) -> None:
         alarms = getattr(self.monitor, "alarms", None)
@@ -328,7 +335,7 @@ class LobewatchApp(App[int]):
             return
         n = len(list(alarms.active()))
         alarms.acknowledge()
-        self.query_one(AlarmList).show(alarms)
+        self.w_alarms.show(alarms)
         self.notify(f"Acknowledged {n} alarm(s)." if n else "No active alarm.")
 
     def action_toggle_recording(self) -> None:

@@ -14,7 +14,7 @@ Marks (each has its own dot pattern, so they read without colour):
   * peak: solid ray and a diamond at the rim;
   * half-power sector: stippled, edges dashed;
   * target: dash-dot ray, tolerance wedge edges dotted, its rim arc solid, a ring
-    glyph at the rim.
+    glyph at the rim (the peak diamond covers it when both fall in one cell).
 """
 
 from __future__ import annotations
@@ -285,10 +285,8 @@ class PolarPlot(CanvasWidget):
             canvas.line(layer, ax, ay)
         tx, ty = geo.to_dots(np.array([target, target]), np.array([0.0, 1.0]))
         canvas.line(layer, tx, ty, dash=(4, 2))
-        lx, ly = geo.to_dots(target, 1.0 + 2.5 / max(geo.radius, 1.0))
-        col, row = int(np.rint(lx)) // 2, int(np.rint(ly)) // 4
-        if canvas.text_free(col, row, 1):
-            canvas.text(col, row, TARGET_GLYPH, "polar--target")
+        col, row = geo.cell_of(target, 1.0)
+        canvas.text(col, row, TARGET_GLYPH, "polar--target")
 
 
 def bearing_text(angle_deg: float | None) -> str:
