@@ -165,14 +165,18 @@ class Player:
             m.tick(item.t, item.value)
             self.ticks_fed += 1
         else:
-            self._apply_event(item.value)
+            self._apply_event(item.value, item.id)
         if item.t > self._t:
             self._t = item.t
 
-    def _apply_event(self, ev: Event) -> None:
+    def _apply_event(self, ev: Event, row_id: int = 0) -> None:
         m, d = self.monitor, ev.data
         if ev.kind == "reference":
-            m.capture_reference(ev.t)
+            if m.capture_reference(ev.t) is None:
+                # No readout yet (just after a seek): use the trace stored with the event.
+                ref = self.reader.reference_for(row_id, ev)
+                if ref is not None:
+                    m.reference = ref
         elif ev.kind == "reference_cleared":
             m.clear_reference(ev.t)
         elif ev.kind == "target":

@@ -1,0 +1,216 @@
+"""Replay through the same pipeline: exactness, pacing, pause, seek and event jumps.
+
+The reference for "right" here is the live run itself: a monitor fed in-process while a
+recorder is attached computes metrics at each tick; replaying the file into a fresh
+monitor must give the identical records at the identical times (the session format's
+promise, docs/session-format.md).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import math
+
+import numpy as np
+import pytest
+
+from replay.player import Player
+from replay.recorder import Recorder
+from replay.session import SessionReader, SessionWriter
+from stream.alarms import AlarmConfig, AlarmEngine
+from stream.array_model import ArrayModel
+from stream.batch import SampleBatch
+from stream.estimator import EstimatorConfig, RollingPattern
+from stream.monitor import Monitor
+from stream.tick import SourceStats
+
+T0 = 1_767_225_600.0  # invented session start (Unix s)
+MODEL = ArrayModel(n_elements=8, spacing_wl=0.5)
+_GRID = np.arange(-180.0, 180.0, 0.01)
+_TABLE = MODEL.power_db(_GRID)  # model evaluated once; the generator interpolates
+
+
+def model_db(angle_deg: np.ndarray) -> np.ndarray:
+    return np.interp((angle_deg + 180.0) % 360.0 - 180.0, _GRID, _TABLE)
+
+
+def make_monitor(alarms: bool = True) -> Monitor:
+    eng = AlarmEngine(AlarmConfig(target_deg=2.0, tolerance_deg=1.0, sll_limit_db=-14.0)) \
+        if alarms else None
+    return Monitor(RollingPattern(EstimatorConfig(tau_s=1.0)), eng, MODEL,
+                   target_deg=2.0, tolerance_deg=1.0)
+
+
+def sweep_batches(duration_s: float, rate_sps: float = 20_000.0, per_batch: int = 200,
+                  seed: int = 1, drift_deg_per_s: float = 0.2):
+    """Invented test data: an 8-element beam swept -60..60 deg every 4 s, slowly
+    drifting, with receiver noise; yields (rx_t, batch)."""
+    rng = np.random.default_rng(seed)
+    n_batches = int(duration_s * rate_sps / per_batch)
+    dt = 1.0 / rate_sps
+    for k in range(n_batches):
+        t = T0 + (k * per_batch + np.arange(per_batch)) * dt
+        phase = ((t - T0) / 4.0) % 1.0
+        angle = np.where(phase < 0.5, -60 + 240 * phase, 180 - 240 * phase)
+        point = drift_deg_per_s * (t - T0)
+        power = -30.0 + model_db(angle - point) + rng.normal(0, 0.3, per_batch)
+        power = np.maximum(power, -90.0)
+        yield float(t[-1]), SampleBatch(t, angle, power, rx_t=float(t[-1]), seq=k, epoch="ab")
+
+
+def record_live(path, duration_s: float = 12.0, threaded: bool = True):
+    """Run a monitor 'live' with a recorder attached; returns the live records."""
+    mon = make_monitor()
+    rec = Recorder(path, {"notes": "invented test session"}, threaded=threaded).attach(mon)
+    records: list[str] = []
+    events: list[str] = []
+    mon.event_sinks.append(lambda ev: events.append(json.dumps(ev.to_dict())))
+    mon.tick_sinks.append(lambda tk: records.append(json.dumps(tk.metrics_record())))
+    next_tick = T0 + 0.1
+    msgs = 0
+    for rx_t, b in sweep_batches(duration_s):
+        while next_tick < rx_t:
+            mon.tick(next_tick, SourceStats(state="receiving", messages=msgs,
+                                            rejected={"bad_json": msgs // 50}))
+            if abs(next_tick - (T0 + 5.0)) < 0.05:
+                mon.capture_reference(next_tick)
+                mon.mark(next_tick, "installer: bracket tightened (invented)")
+            if abs(next_tick - (T0 + 8.0)) < 0.05:
+                mon.set_target(next_tick, 1.0, 0.5)
+            next_tick += 0.1
+        mon.ingest(b)
+        msgs += 1
+    mon.tick(next_tick, SourceStats(state="ended", messages=msgs))
+    rec.close()
+    return records, events
+
+
+def replay_records(path, **kw):
+    mon = make_monitor()
+    records: list[str] = []
+    events: list[str] = []
+    mon.event_sinks.append(lambda ev: events.append(json.dumps(ev.to_dict())))
+    mon.tick_sinks.append(lambda tk: records.append(json.dumps(tk.metrics_record())))
+    with Player(path, mon, speed=math.inf, **kw) as p:
+        p.run_fast()
+    return records, events
+
+
+@pytest.fixture(scope="module")
+def live_session(tmp_path_factory):
+    path = tmp_path_factory.mktemp("s") / "live.lws"
+    records, events = record_live(path)
+    return path, records, events
+
+
+def test_replay_reproduces_live_metrics_exactly(live_session):
+    path, live, live_events = live_session
+    assert len(live) > 100
+    got, got_events = replay_records(path)
+    assert got == live  # same times, same metrics, same counters, line for line
+    assert got_events == live_events  # user events re-applied, alarms re-judged the same
+    kinds = {json.loads(e)["kind"] for e in live_events}
+    assert {"reference", "marker", "target", "alarm"} <= kinds
+
+
+def test_two_replays_identical_and_reader_counts(live_session):
+    path = live_session[0]
+    assert replay_records(path) == replay_records(path)
+
+
+def test_replay_with_other_thresholds_rejudges(live_session):
+    """Recorded alarm events are not re-emitted: a monitor without alarms sees none."""
+    path = live_session[0]
+    mon = make_monitor(alarms=False)
+    seen: list[str] = []
+    mon.event_sinks.append(lambda ev: seen.append(ev.kind))
+    with Player(path, mon, speed=math.inf) as p:
+        p.run_fast()
+    assert "alarm" not in seen and "marker" in seen
+
+
+def test_seek_settles_pattern_and_reads_few_rows(live_session):
+    path, live, _ = live_session
+    target = T0 + 10.0
+    full = make_monitor()
+    with Player(path, full, speed=math.inf) as p:
+        for _ in p._seek_steps(target):  # seek from the start = full replay up to target
+            pass
+        assert p.position.t == target
+    want = full.last_tick
+    mon = make_monitor()
+    with Player(path, mon, speed=math.inf, warmup_s=5.0) as p:
+        p.seek_to(target)
+        got = mon.last_tick
+        assert got.t == want.t
+        # 5 time constants of warm-up: the EMA keeps e^-5 of the reset state
+        assert got.metrics.peak_angle_deg == pytest.approx(want.metrics.peak_angle_deg, abs=0.05)
+        assert got.metrics.hpbw_deg == pytest.approx(want.metrics.hpbw_deg, abs=0.1)
+        # reference captured at T0+5 s and target set at T0+8 s are in force after the seek
+        assert mon.reference is not None and mon.target_deg == 1.0
+        n_rows = sum(SessionReader(path).counts()[k] for k in ("batches", "ticks", "events"))
+        assert p.reader.rows_read < 0.6 * n_rows
+
+
+def test_next_and_prev_event(live_session):
+    path = live_session[0]
+    with Player(path, make_monitor(), speed=math.inf, warmup_s=2.0) as p:
+        evs = p.reader.events()
+        first = p.next_event()
+        assert first is not None and first.t == evs[0].t and p.position.t == first.t
+        second = p.next_event()
+        later = [e.t for e in evs if e.t > first.t]
+        assert second is not None and second.t == later[0]
+        back = p.prev_event()
+        assert back is not None and back.t == first.t
+        p.seek_to(p.t_end)
+        assert p.next_event() is None
+
+
+def test_grid_ticks_for_session_without_ticks(tmp_path):
+    path = tmp_path / "imp.lws"
+    with SessionWriter(path, {"kind": "import"}) as w:
+        for k in range(25):  # 25 batches at 0.04 s spacing: span 0.96 s
+            w.write_batch(SampleBatch.from_arrays(np.linspace(-10, 10, 5), -np.ones(5) * 3,
+                                                  rx_t=k * 0.04))
+    mon = make_monitor(alarms=False)
+    times: list[float] = []
+    mon.tick_sinks.append(lambda tk: times.append(tk.t))
+    with Player(path, mon, speed=math.inf, interval_s=0.25) as p:
+        p.run_fast()
+    assert times == [0.25, 0.5, 0.75, 0.96]
+    assert mon.estimator.samples == 125
+
+
+async def test_paced_run_pause_and_seek(live_session):
+    """With an injected clock nothing past the paced position is applied."""
+    path = live_session[0]
+    now = [0.0]
+    mon = make_monitor()
+    p = Player(path, mon, speed=2.0, clock=lambda: now[0], hold_at_end=True)
+    stop = asyncio.Event()
+    task = asyncio.create_task(p.run(stop))
+    await asyncio.sleep(0.2)
+    assert mon.last_tick is None or mon.last_tick.t <= p.t_start + 1e-9
+    now[0] = 1.0  # one wall second at 2x: two recorded seconds
+    await asyncio.sleep(0.3)
+    assert mon.last_tick is not None
+    assert p.t_start + 1.8 <= mon.last_tick.t <= p.t_start + 2.0
+    p.pause()
+    t_paused = mon.last_tick.t
+    now[0] = 5.0
+    await asyncio.sleep(0.2)
+    assert mon.last_tick.t == t_paused and p.position.t <= p.t_start + 2.0
+    p.resume()
+    p.seek(5.0)
+    await asyncio.sleep(0.3)
+    assert p.position.t == pytest.approx(p.t_start + 2.0 + 5.0, abs=0.11)
+    p.set_speed(1000.0)
+    now[0] = 10.0
+    await asyncio.sleep(0.5)
+    assert p.ended  # reached the end, and holds there
+    assert not task.done()
+    stop.set()
+    await asyncio.wait_for(task, 2.0)
+    p.close()
