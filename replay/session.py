@@ -61,7 +61,7 @@ CREATE TABLE refs (event_id INTEGER PRIMARY KEY, angle_deg BLOB NOT NULL,
 
 _TABLES = ("meta", "batches", "ticks", "events", "refs")
 
-_HEAD = struct.Struct("<dqq")
+_HEAD = struct.Struct("<dqqq")
 
 _FIX_HINT = "use a backup copy of the session, or re-record it"
 
@@ -87,9 +87,12 @@ def _f8(a: np.ndarray) -> bytes:
     return np.ascontiguousarray(a, dtype="<f8").tobytes()
 
 
-def batch_crc(rx_t: float, n: int, seq: int | None, t: bytes, a: bytes, p: bytes) -> int:
-    """CRC-32 over a batch row's receive time, count, seq and the three blobs."""
-    c = zlib.crc32(_HEAD.pack(rx_t, n, -1 if seq is None else seq))
+def batch_crc(rx_t: float, n: int, seq: int | None, calibrated: bool, epoch: str | None,
+              stream: str, t: bytes, a: bytes, p: bytes) -> int:
+    """CRC-32 (zlib) over a batch row's receive time, count, seq, calibrated flag, epoch,
+    stream and the three blobs (t_first/t_last are derived and not covered)."""
+    c = zlib.crc32(_HEAD.pack(rx_t, n, -1 if seq is None else seq, 1 if calibrated else 0))
+    c = zlib.crc32(f"{'' if epoch is None else epoch}\x1f{stream}".encode(), c)
     return zlib.crc32(p, zlib.crc32(a, zlib.crc32(t, c)))
 
 
@@ -222,9 +225,11 @@ class SessionWriter:
         t_last = float(batch.t[-1]) if n else None
         seq = None if batch.seq is None else int(batch.seq)
         i = self._take_id()
-        self._batches.append((i, rx_t, t_first, t_last, n, seq, batch.epoch, batch.stream or "",
+        stream = batch.stream or ""
+        self._batches.append((i, rx_t, t_first, t_last, n, seq, batch.epoch, stream,
                               1 if batch.calibrated else 0, tb, ab, pb,
-                              batch_crc(rx_t, n, seq, tb, ab, pb)))
+                              batch_crc(rx_t, n, seq, batch.calibrated, batch.epoch, stream,
+                                        tb, ab, pb)))
         self.pending_bytes += 3 * 8 * n + 64
         self.samples_written += n
         return i
@@ -497,7 +502,7 @@ class SessionReader:
         if (not isinstance(tb, bytes) or not isinstance(ab, bytes) or not isinstance(pb, bytes)
                 or len(tb) != 8 * n or len(ab) != 8 * n or len(pb) != 8 * n):
             raise _damaged(self.path, f"batch {i} has the wrong length")
-        if batch_crc(float(rx_t), int(n), seq, tb, ab, pb) != crc:
+        if batch_crc(float(rx_t), int(n), seq, bool(cal), epoch, stream or "", tb, ab, pb) != crc:
             raise _damaged(self.path, f"batch {i} fails its checksum")
         return SampleBatch(np.frombuffer(tb, dtype="<f8"), np.frombuffer(ab, dtype="<f8"),
                            np.frombuffer(pb, dtype="<f8"), rx_t=float(rx_t), seq=seq,

@@ -1,0 +1,242 @@
+"""Session files: exact storage, read-only opening, validation, corruption, indexed seek.
+
+Reference for the on-disk facts checked here: the SQLite file format documentation
+("Database File Format", sqlite.org: 100-byte header, magic string, page size at
+offset 16, user_version at 60, application_id at 68) -- from memory.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import shutil
+import sqlite3
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from replay.session import (
+    APPLICATION_ID,
+    FORMAT_VERSION,
+    SessionReader,
+    SessionWriter,
+    read_all_samples,
+)
+from stream.batch import SampleBatch
+from stream.errors import InputFileError, UserError
+from stream.tick import Event, SourceStats
+from tui.cli import main
+
+T0 = 1_767_225_600.0  # invented
+
+
+def batch(k: int, n: int = 50, rng=None) -> SampleBatch:
+    rng = rng or np.random.default_rng(k)
+    t = T0 + k * 0.1 + np.arange(n) * 1e-3
+    return SampleBatch(t, rng.uniform(-180, 180, n), rng.normal(-40, 5, n), rx_t=float(t[-1]),
+                       seq=k, epoch="e1", stream="s", calibrated=bool(k % 2))
+
+
+def write_session(path, n_batches=40, force=False):
+    with SessionWriter(path, {"notes": "invented", "endpoint": "tcp://127.0.0.1:1"},
+                       force=force) as w:
+        for k in range(n_batches):
+            w.write_batch(batch(k))
+            w.write_tick(T0 + k * 0.1 + 0.05, SourceStats("receiving", k, {"bad_json": k}, 1))
+            if k % 10 == 0:
+                w.write_event(Event(T0 + k * 0.1 + 0.06, "marker", {"text": f"mark {k}"}))
+        w.commit()
+    return path
+
+
+def digest(path) -> tuple[str, int]:
+    with open(path, "rb") as fh:
+        return hashlib.sha256(fh.read()).hexdigest(), os.stat(path).st_mtime_ns
+
+
+def test_round_trip_is_exact_and_in_recorded_order(tmp_path):
+    p = write_session(tmp_path / "a.lws")
+    with SessionReader(p) as r:
+        assert r.meta["format_version"] == FORMAT_VERSION and r.meta["notes"] == "invented"
+        items = list(r.iter_items())
+        assert [it.id for it in items] == sorted(it.id for it in items)
+        assert [it.kind for it in items[:3]] == ["batch", "tick", "event"]
+        bs = [it.value for it in items if it.kind == "batch"]
+        for k, b in enumerate(bs):
+            want = batch(k)
+            for name in ("t", "angle_deg", "power_db"):
+                assert np.array_equal(getattr(b, name), getattr(want, name))
+            assert (b.rx_t, b.seq, b.epoch, b.stream, b.calibrated) == (
+                want.rx_t, want.seq, want.epoch, want.stream, want.calibrated)
+        ticks = [it for it in items if it.kind == "tick"]
+        assert ticks[3].value == SourceStats("receiving", 3, {"bad_json": 3}, 1)
+        assert r.counts() == {"batches": 40, "samples": 2000, "ticks": 40, "events": 4}
+    allb = read_all_samples(p)
+    assert len(allb) == 2000 and not allb.calibrated
+
+
+def test_plain_sqlite_and_numpy_read_samples(tmp_path):
+    """What docs/session-format.md tells a user to do, with nothing but sqlite3+numpy."""
+    p = write_session(tmp_path / "a.lws")
+    con = sqlite3.connect(f"file:{p}?mode=ro", uri=True)
+    rows = con.execute("SELECT t, angle_deg, power_db FROM batches ORDER BY id").fetchall()
+    angle = np.concatenate([np.frombuffer(r[1], dtype="<f8") for r in rows])
+    assert np.array_equal(angle, np.concatenate([batch(k).angle_deg for k in range(40)]))
+    assert con.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
+    assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    con.close()
+
+
+def test_refuses_to_overwrite_unless_forced(tmp_path):
+    p = write_session(tmp_path / "a.lws")
+    before = digest(p)
+    with pytest.raises(UserError, match="exists.*--force"):
+        SessionWriter(p, {})
+    assert digest(p) == before
+    write_session(p, n_batches=3, force=True)
+    with SessionReader(p) as r:
+        assert r.counts()["batches"] == 3
+
+
+def test_reading_never_modifies_the_file(tmp_path):
+    p = write_session(tmp_path / "a.lws")
+    before = digest(p)
+    names = sorted(os.listdir(tmp_path))
+    with SessionReader(p) as r:
+        list(r.iter_items())
+    read_all_samples(p)
+    assert digest(p) == before
+    assert sorted(os.listdir(tmp_path)) == names  # not even SQLite side files
+
+
+def test_killed_writer_leaves_a_readable_file_and_reader_keeps_it_intact(tmp_path):
+    """A writer killed after a commit: the rows sit in the -wal file; the reader sees
+    them without touching the session file."""
+    p = tmp_path / "k.lws"
+    code = (
+        "import os, numpy as np;"
+        "from replay.session import SessionWriter;"
+        "from stream.batch import SampleBatch;"
+        f"w = SessionWriter({str(p)!r}, {{}});"
+        "[w.write_batch(SampleBatch.from_arrays(np.arange(5.0), np.zeros(5), rx_t=k))"
+        " for k in range(7)];"
+        "w.commit();"
+        "w.write_batch(SampleBatch.from_arrays(np.arange(5.0), np.zeros(5), rx_t=99));"
+        "os._exit(0)"  # dies without closing: the 8th batch was never committed
+    )
+    subprocess.run([sys.executable, "-c", code], check=True, cwd=os.getcwd())
+    assert os.path.exists(f"{p}-wal")
+    before = digest(p)
+    with SessionReader(p) as r:
+        assert r.counts()["batches"] == 7
+    assert digest(p) == before
+
+
+@pytest.mark.parametrize("case", ["missing", "empty", "text", "other_sqlite", "newer",
+                                  "truncated", "flipped_blob", "header_garbage"])
+def test_bad_files_give_one_line_errors(tmp_path, case, capsys):
+    good = write_session(tmp_path / "good.lws")
+    p = tmp_path / "bad.lws"
+    if case == "empty":
+        p.write_bytes(b"")
+    elif case == "text":
+        p.write_text("angle_deg,power_dbm\n0,-30\n")
+    elif case == "other_sqlite":
+        con = sqlite3.connect(p)
+        con.execute("CREATE TABLE x (a)")
+        con.commit()
+        con.close()
+    elif case == "newer":
+        shutil.copy(good, p)
+        con = sqlite3.connect(p)
+        con.execute(f"PRAGMA user_version = {FORMAT_VERSION + 1}")
+        con.commit()
+        con.close()
+    elif case == "truncated":
+        data = good.read_bytes()
+        p.write_bytes(data[: len(data) // 2 + 100])
+    elif case == "flipped_blob":
+        data = bytearray(good.read_bytes())
+        needle = batch(20).power_db.astype("<f8").tobytes()[:16]
+        i = bytes(data).find(needle)
+        assert i > 0
+        data[i + 3] ^= 0x40
+        p.write_bytes(bytes(data))
+    elif case == "header_garbage":
+        data = bytearray(good.read_bytes())
+        data[16:18] = b"\x00\x03"  # impossible page size
+        p.write_bytes(bytes(data))
+    before = digest(p) if p.exists() else None
+    with pytest.raises(InputFileError) as ei:
+        with SessionReader(p) as r:
+            list(r.iter_items())
+    msg = str(ei.value)
+    assert "\n" not in msg and str(p) in msg
+    expect = {"missing": "no such file", "empty": "empty", "text": "not a lobewatch session",
+              "other_sqlite": "not a lobewatch session", "newer": "newer",
+              "truncated": "truncated", "flipped_blob": "checksum",
+              "header_garbage": "page size"}[case]
+    assert expect in msg
+    if before is not None:
+        assert digest(p) == before
+    # and through the command line: exit 1, one line, no traceback
+    out = tmp_path / "out.csv"
+    assert main(["export", str(p), "-o", str(out)]) == 1
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "Traceback" not in err and expect in err
+    assert not out.exists()
+
+
+def test_random_byte_flips_never_escape_as_tracebacks(tmp_path, capsys):
+    """Flip bytes anywhere past the header: the export either succeeds with the exact
+    data (the flip hit unused space) or fails with one line."""
+    good = write_session(tmp_path / "good.lws", n_batches=60)
+    ref = tmp_path / "ref.csv"
+    assert main(["export", str(good), "-o", str(ref)]) == 0
+    data = good.read_bytes()
+    rng = np.random.default_rng(7)
+    failed = 0
+    for trial in range(60):
+        bad = bytearray(data)
+        for pos in rng.integers(100, len(data), 4):
+            bad[pos] ^= int(rng.integers(1, 256))
+        p = tmp_path / f"f{trial}.lws"
+        p.write_bytes(bytes(bad))
+        out = tmp_path / f"f{trial}.csv"
+        capsys.readouterr()
+        rc = main(["export", str(p), "-o", str(out)])
+        err = capsys.readouterr().err
+        assert "Traceback" not in err
+        if rc == 0:
+            assert out.read_bytes() == ref.read_bytes()
+        else:
+            failed += 1
+            assert rc == 1 and err.count("\n") == 1 and not out.exists()
+    assert failed > 0
+
+
+def test_seek_into_one_hour_session_reads_few_rows(tmp_path):
+    """One hour at 10 readouts/s (36,000 ticks and batches): starting in the middle
+    reads a handful of rows, by the time indexes."""
+    p = tmp_path / "hour.lws"
+    n = 36_000
+    a = np.linspace(-60, 60, 8)
+    with SessionWriter(p, {}, synchronous="OFF") as w:
+        for k in range(n):
+            w.write_batch(SampleBatch(np.full(8, T0 + k * 0.1), a, -a * a / 100, rx_t=T0 + k * 0.1))
+            w.write_tick(T0 + k * 0.1 + 0.05, SourceStats("receiving", k))
+            if k % 600 == 0:
+                w.write_event(Event(T0 + k * 0.1 + 0.07, "marker", {"text": str(k)}))
+        w.commit()
+    with SessionReader(p) as r:
+        span = r.time_span()
+        assert span.duration_s == pytest.approx(3599.95)
+        mid = T0 + 1800.0
+        it = r.iter_items(mid)
+        first = [next(it) for _ in range(20)]
+        assert first[0].kind == "batch" and first[0].t == pytest.approx(mid, abs=0.1)
+        assert r.rows_read <= 30  # of 72,060 rows
+        ev = r.neighbour_event(mid, forward=True)
+        assert ev is not None and ev.t > mid and r.rows_read <= 31
