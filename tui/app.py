@@ -121,7 +121,8 @@ class LobewatchApp(App[int]):
 
     def __init__(self, monitor: Monitor, driver: Any | None, *, mode: str = "live",
                  recorder_factory: Callable[[], Any] | None = None,
-                 refresh_hz: float = 10.0, title: str | None = None) -> None:
+                 refresh_hz: float = 10.0, title: str | None = None,
+                 bell: bool = False) -> None:
         if mode not in MODES:
             raise ValueError(f"mode must be one of {MODES}, got {mode!r}")
         super().__init__()
@@ -132,6 +133,8 @@ class LobewatchApp(App[int]):
         self.refresh_hz = float(refresh_hz)
         if title:
             self.title = title
+        self.bell_on_alarm = bool(bell)
+        self._alarm_events: list[Any] = []
         self.recorder: Any | None = None
         self.display_paused = False
         self.replay_paused = False
@@ -170,6 +173,9 @@ class LobewatchApp(App[int]):
         self.query_one("#trend").border_title = "peak bearing · 5 min"
         self.query_one("#alarms").border_title = "alarms"
         self._stop = asyncio.Event()
+        sinks = getattr(self.monitor, "event_sinks", None)
+        if sinks is not None:
+            sinks.append(self._on_event)
         if self.driver is not None:
             self.run_worker(self._drive(), name="driver", group="driver", exclusive=True,
                             exit_on_error=False)
@@ -194,6 +200,19 @@ class LobewatchApp(App[int]):
         finally:
             self.driver_done = True
 
+    def _on_event(self, event: Any) -> None:
+        """Monitor event sink: keep alarm events for the next refresh (no redraw here)."""
+        if getattr(event, "kind", None) == "alarm":
+            self._alarm_events.append(event)
+
+    def _announce_alarms(self) -> None:
+        events, self._alarm_events = self._alarm_events, []
+        if not events or not self.bell_on_alarm:
+            return
+        from tui.notify import should_ring
+        if any(should_ring(ev) for ev in events):
+            self.bell()
+
     # -- the refresh timer -------------------------------------------------------------
     def refresh_view(self) -> None:
         """Read the monitor's latest tick and push it down (only when it changed)."""
@@ -205,6 +224,7 @@ class LobewatchApp(App[int]):
         if not self.display_paused and tick is not self._shown:
             self.show_tick(tick)
         self.w_alarms.show(getattr(self.monitor, "alarms", None))
+        self._announce_alarms()
 
     def show_tick(self, tick: Tick | None) -> None:
         """Push one tick into every widget (the refresh timer and tests call this)."""
@@ -426,6 +446,9 @@ class LobewatchApp(App[int]):
 
     def on_unmount(self) -> None:
         self._stop.set()
+        sinks = getattr(self.monitor, "event_sinks", None)
+        if sinks is not None and self._on_event in sinks:
+            sinks.remove(self._on_event)
         self._close_recorder()
 
 
@@ -450,8 +473,15 @@ def run_app(args: argparse.Namespace | None, monitor: Monitor, driver: Any, mode
     """Open the beam screen until the user quits; returns the exit status."""
     refresh_hz = float(getattr(args, "refresh_hz", None) or 10.0)
     title = getattr(args, "title", None)
+    bell = False
+    if args is not None:
+        try:
+            from tui.alarm_options import notify_settings_from_args
+            bell = notify_settings_from_args(args).bell
+        except (ImportError, AttributeError):
+            bell = bool(getattr(args, "bell", False))
     app = LobewatchApp(monitor, driver, mode=mode, recorder_factory=recorder_factory,
-                       refresh_hz=refresh_hz, title=title)
+                       refresh_hz=refresh_hz, title=title, bell=bell)
     result = app.run()
     if app.driver_error:
         raise UserError(app.driver_error)

@@ -18,8 +18,8 @@ READINGS = """\
 broadside (or the mount's zero), positive is clockwise.  The spread beside it
 (peak_angle_spread_deg) is how much the per-sweep peak moved over recent sweeps:
 read it as the uncertainty of the bearing.
-[b]tgt / off[/b] — the target bearing ± tolerance and the peak's offset from it;
-[b]ok[/b] inside the tolerance, [b]OUT[/b] outside.
+[b]tgt / off[/b] — the target bearing ± tolerance and the peak's offset
+from it: [b]ok[/b] inside the tolerance, [b]OUT[/b] outside.
 [b]HPBW[/b] (hpbw_deg) — half-power beamwidth: the angle between the two points
 3 dB (half power) below the peak.
 [b]−10dB[/b] (bw10_deg) — width between the points 10 dB below the peak.
@@ -72,6 +72,20 @@ SAFETY = """\
 """
 
 
+def reflow(text: str) -> str:
+    """Join hard-wrapped source lines into paragraphs so the screen wraps them to its
+    own width; a line opening with bold markup or a bullet starts a new paragraph."""
+    out: list[str] = []
+    for line in text.splitlines():
+        starts_new = not line.strip() or line.startswith(("[b]", "•")) or not out \
+            or not out[-1].strip()
+        if starts_new:
+            out.append(line)
+        else:
+            out[-1] = out[-1].rstrip() + " " + line.strip()
+    return "\n".join(out)
+
+
 class HelpScreen(ModalScreen[None]):
     """Explains every reading and key, with the safety cautions."""
 
@@ -95,7 +109,7 @@ class HelpScreen(ModalScreen[None]):
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="help-body"):
-            yield Static(READINGS, id="help-readings")
+            yield Static(reflow(READINGS), id="help-readings")
             if self._keys:
                 keys = Text()
                 keys.append("Keys\n", style="bold")
@@ -103,7 +117,7 @@ class HelpScreen(ModalScreen[None]):
                     keys.append(f"  {k:>12}", style="bold")
                     keys.append(f"  {d}\n")
                 yield Static(keys, id="help-keys")
-            yield Static(SAFETY, id="help-safety")
+            yield Static(reflow(SAFETY), id="help-safety")
             yield Static("[i]Esc closes this page.  Demo data is invented.[/i]")
 
     def action_dismiss_help(self) -> None:
