@@ -18,6 +18,7 @@ import math
 import os
 import sqlite3
 import struct
+import tempfile
 import time
 import zlib
 from collections.abc import Iterator
@@ -131,6 +132,13 @@ class TimeSpan:
 # writing
 # ---------------------------------------------------------------------------------------
 
+def _unlink_quietly(path: str) -> None:
+    try:
+        os.unlink(path)
+    except OSError:
+        pass
+
+
 def remove_session(path: str | os.PathLike[str]) -> None:
     """Delete a session file and its SQLite side files (``-wal``, ``-shm``)."""
     for suffix in ("", "-wal", "-shm", "-journal"):
@@ -154,50 +162,24 @@ class SessionWriter:
         self.path = os.fspath(path)
         if os.path.isdir(self.path):
             raise UserError(f"{self.path}: is a directory; give a file name ending in {SUFFIX}")
-        if os.path.exists(self.path):
-            if not force:
-                raise UserError(f"{self.path}: file exists; choose another name or add --force "
-                                "to overwrite it")
-            remove_session(self.path)
-        else:
-            for suffix in ("-wal", "-shm", "-journal"):  # left over from a deleted file
-                try:
-                    os.unlink(self.path + suffix)
-                except FileNotFoundError:
-                    pass
-        try:
-            fd = os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
-            os.close(fd)
-        except FileExistsError:
-            raise UserError(f"{self.path}: file appeared while creating it; choose another "
-                            "name") from None
-        except OSError as exc:
-            raise UserError(f"{self.path}: cannot create the session file ({exc.strerror}); "
-                            "check the directory exists and is writable") from None
+        if os.path.exists(self.path) and not force:
+            raise UserError(f"{self.path}: file exists; choose another name or add --force "
+                            "to overwrite it")
+        meta = {"format_version": FORMAT_VERSION, "created_t": time.time()}
+        meta.update(metadata or {})
+        tmp = self._create_complete_file(meta, force)
         try:
             con = sqlite3.connect(self.path, isolation_level=None,
                                   check_same_thread=check_same_thread)
-            # Header fields and schema go into the main file before WAL is switched on,
-            # so even a session killed a moment later identifies itself.
-            con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
-            con.execute(f"PRAGMA user_version = {FORMAT_VERSION}")
-            con.execute("BEGIN")
-            for stmt in _SCHEMA.split(";"):
-                if stmt.strip():
-                    con.execute(stmt)
-            meta = {"format_version": FORMAT_VERSION, "created_t": time.time()}
-            meta.update(metadata or {})
-            con.executemany("INSERT INTO meta (key, value) VALUES (?, ?)",
-                            [(str(k), dumps(v)) for k, v in meta.items()])
-            con.execute("COMMIT")
             mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
             if str(mode).lower() != "wal":
                 raise sqlite3.OperationalError(f"journal mode {mode}")
             con.execute(f"PRAGMA synchronous = {synchronous}")
         except sqlite3.Error as exc:
-            remove_session(self.path)
-            raise UserError(f"{self.path}: cannot initialise the session file ({exc}); "
+            raise UserError(f"{self.path}: cannot open the new session file ({exc}); "
                             "check free space and permissions") from None
+        finally:
+            _unlink_quietly(tmp)
         self._con: sqlite3.Connection | None = con
         self.meta = meta
         self._next_id = 1
@@ -209,6 +191,63 @@ class SessionWriter:
         self.pending_bytes = 0
         self.samples_written = 0
         self.rows_written = 0
+
+    def _create_complete_file(self, meta: dict[str, Any], force: bool) -> str:
+        """Build the schema in a temporary file, then link it to the final name: the
+        session file never exists half-initialised, and an existing file is never
+        replaced unless ``force``.  Returns the temporary name (to unlink)."""
+        d = os.path.dirname(os.path.abspath(self.path))
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=".lobewatch-new-", suffix=SUFFIX, dir=d)
+            os.close(fd)
+            os.chmod(tmp, 0o644)  # mkstemp makes 0600; a session is an ordinary document
+        except OSError as exc:
+            raise UserError(f"{self.path}: cannot create the session file ({exc.strerror}); "
+                            "check the directory exists and is writable") from None
+        try:
+            con = sqlite3.connect(tmp, isolation_level=None)
+            try:
+                con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+                con.execute(f"PRAGMA user_version = {FORMAT_VERSION}")
+                con.execute("BEGIN")
+                for stmt in _SCHEMA.split(";"):
+                    if stmt.strip():
+                        con.execute(stmt)
+                con.executemany("INSERT INTO meta (key, value) VALUES (?, ?)",
+                                [(str(k), dumps(v)) for k, v in meta.items()])
+                con.execute("COMMIT")
+                con.execute("PRAGMA journal_mode = WAL")  # persistent, stored in the header
+            finally:
+                con.close()
+            with open(tmp, "rb+") as fh:
+                os.fsync(fh.fileno())
+        except (sqlite3.Error, OSError) as exc:
+            remove_session(tmp)
+            raise UserError(f"{self.path}: cannot initialise the session file ({exc}); "
+                            "check free space and permissions") from None
+        try:
+            if force:
+                os.replace(tmp, self.path)
+            else:
+                try:
+                    os.link(tmp, self.path)  # fails if the name exists: no overwrite race
+                except FileExistsError:
+                    raise
+                except OSError:  # file systems without hard links
+                    if os.path.exists(self.path):
+                        raise FileExistsError(self.path) from None
+                    os.rename(tmp, self.path)
+        except FileExistsError:
+            remove_session(tmp)
+            raise UserError(f"{self.path}: file appeared while creating it; choose another "
+                            "name") from None
+        except OSError as exc:
+            remove_session(tmp)
+            raise UserError(f"{self.path}: cannot create the session file ({exc.strerror}); "
+                            "check the directory is writable") from None
+        for suffix in ("-wal", "-shm", "-journal"):  # the replaced file's, or left over
+            _unlink_quietly(self.path + suffix)
+        return tmp
 
     # -- rows --------------------------------------------------------------------------
     def _take_id(self) -> int:
