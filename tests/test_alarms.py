@@ -542,3 +542,22 @@ def test_config_holds_and_to_dict():
     assert d["watch_deg"] == [10.0, 20.0] and d["rule_clear_hold_s"] == {"watch": 1.0}
     import json
     json.dumps(d)
+
+
+@pytest.mark.parametrize("n", [4, 8, 16])
+def test_tolerance_rule_of_thumb_pointing_loss(n):
+    """docs/alarms.md sizes the default tolerance (0.25 x HPBW) by the pointing-loss
+    approximation L = 12 (theta / HPBW)^2 dB (Gaussian main-lobe approximation, common
+    practice in link budgets; quoted from memory).  Checked here against the textbook
+    uniform-array pattern (Balanis ch. 6, via stream.array_model): 0.25 x HPBW off the
+    peak costs 0.71 dB (0.75 dB by the approximation), 0.5 x HPBW costs 3.0 dB."""
+    from stream.array_model import ArrayModel
+
+    m = ArrayModel(n, 0.5)
+    g = np.arange(-90.0, 90.0, 0.005)
+    above = g[m.power_db(g) >= -3.0103]
+    hpbw = above.max() - above.min()
+    cfg = AlarmConfig()
+    for frac in (0.1, cfg.tolerance_hpbw_frac, 0.3, 0.5):
+        loss = -float(m.power_db(np.array([frac * hpbw]))[0])
+        assert loss == pytest.approx(12 * frac ** 2, abs=0.06)
