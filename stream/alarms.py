@@ -554,19 +554,23 @@ class AlarmEngine:
         return _Reading(offset, level, tol, "deg", detail)
 
     def _rule_broadening(self, tr: _Track, tick: Tick) -> _Reading:
+        """Judged on the fraction HPBW / expected - 1; reported in degrees (the measured
+        HPBW against the HPBW that would raise), which reads directly on a screen."""
         cfg = self.config
         expected, source = self._expected_hpbw(tick)
         hpbw = tick.metrics.hpbw_deg
         if expected is None or hpbw is None or not expected > 0:
-            return _Reading(None, None, cfg.broadening_frac, "frac", "")
+            limit = None if expected is None else expected * (1 + cfg.broadening_frac)
+            return _Reading(None, None, limit, "deg", "")
         frac = hpbw / expected - 1.0
         level = _hyst_level(frac, self._cur(tr), cfg.broadening_frac,
                             cfg.broadening_frac - cfg.broadening_margin_frac,
                             cfg.broadening_major_frac,
                             cfg.broadening_major_frac - cfg.broadening_margin_frac)
+        limit = expected * (1 + cfg.broadening_frac)
         detail = (f"HPBW {hpbw:.2f} deg vs {expected:.2f} deg expected from the {source} "
-                  f"({frac:+.0%}, limit +{cfg.broadening_frac:.0%})")
-        return _Reading(frac, level, cfg.broadening_frac, "frac", detail)
+                  f"({frac:+.0%}, limit +{cfg.broadening_frac:.0%} = {limit:.2f} deg)")
+        return _Reading(hpbw, level, limit, "deg", detail)
 
     def _rule_gain_loss(self, tr: _Track, tick: Tick) -> _Reading:
         cfg = self.config

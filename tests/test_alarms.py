@@ -229,7 +229,10 @@ def test_broadening_against_model_then_reference():
     evs = only(run(eng, ticks), "broadening")
     assert [(e.data["transition"], e.data["severity"]) for e in evs] == [
         ("raise", "minor"), ("escalate", "major"), ("clear", "cleared")]
-    assert evs[0].data["value"] == pytest.approx(17.0 / 12.8 - 1)
+    # judged on the fraction, reported in degrees: measured HPBW vs the HPBW that raises
+    assert evs[0].data["value"] == pytest.approx(17.0)
+    assert evs[0].data["threshold"] == pytest.approx(12.8 * 1.25)
+    assert evs[0].data["unit"] == "deg"
     assert evs[0].t == pytest.approx(1008.0)
     # model expected value takes precedence over the reference
     eng = AlarmEngine(AlarmConfig(raise_hold_s=0.0))
