@@ -59,6 +59,10 @@ _FLAT_DB: float = 1e-9
 _RISE_MIN_DB: float = 1.0
 _RISE_MAX_DB: float = 6.0
 _RISE_NOISE_FACTOR: float = 5.0
+#: A main lobe sampled by fewer points than this is "coarse": rise capped at
+#: _RISE_COARSE_DB (a side lobe sampled every 5 deg may show only a few dB of rise).
+_COARSE_LOBE_SAMPLES: int = 12
+_RISE_COARSE_DB: float = 2.0
 #: Residual (dB rms) of a parabola through the main lobe's top above which the data
 #: are treated as noisy (clean patterns leave far less, see tests).
 _NOISE_DB: float = 0.02
@@ -115,7 +119,15 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         ic = i
 
     v_r, pk_db = _vertex(r, pr, ic, circular)
+    # Samples out to the outermost half-power crossings (side lobes stay below -3 dB):
+    # few means a coarse sweep, whose side lobes may rise only a few dB between
+    # sampled nulls.
+    above = pr >= pk_db + HALF_POWER_DB
+    lobe_samples = (above[ic:].size - int(above[ic:][::-1].argmax())
+                    + above[:ic + 1].size - int(above[:ic + 1].argmax()))
     rise = _hysteresis_db(pr)
+    if lobe_samples < _COARSE_LOBE_SAMPLES:
+        rise = min(rise, _RISE_COARSE_DB)
     right, left, k_sl, sl_edge = _lobes(r, pr, ic, pk_db, rise, circular)
     sl = _vertex(r, pr, k_sl, circular) if k_sl is not None and not sl_edge else None
 
@@ -129,19 +141,25 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         ctr = 0.5 * (right.hp - left.hp)
         top = _poly_peak(r, pr, ctr, half, circular, rms_only=True)
         if top is not None and top[2] > _NOISE_DB:
-            sigma, cnt = top[2], top[3]
-            top = _poly_peak(r, pr, ctr, half, circular) or top
-            top = _poly_peak(r, pr, top[0], half, circular) or top
-            v_r, pk_db = top[0], top[1]
-            k = 2 * (cnt // 12) + 1
-            ps = _moving_average(pr, k, circular) if k >= 3 else pr
-            dist = np.abs(r - v_r)
-            j = int(dist.argmin())
-            rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
-            right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
-            # Offsets from sample j -> offsets from the peak sample.
-            right.shift(float(r[j]))
-            left.shift(-float(r[j]))
+            # Two passes: the second sizes its windows from the first's beamwidth
+            # (the raw walk's width is biased narrow by noise).
+            for _ in range(2):
+                top = _poly_peak(r, pr, ctr, half, circular) or top
+                top = _poly_peak(r, pr, top[0], half, circular) or top
+                sigma, cnt = top[2], top[3]
+                v_r, pk_db = top[0], top[1]
+                k = 2 * (cnt // 12) + 1
+                ps = _moving_average(pr, k, circular) if k >= 3 else pr
+                j = int(np.abs(r - v_r).argmin())
+                rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
+                right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
+                # Offsets from sample j -> offsets from the peak sample.
+                right.shift(float(r[j]))
+                left.shift(-float(r[j]))
+                if right.hp is None or left.hp is None:
+                    break
+                half = 0.5 * (right.hp + left.hp)
+                ctr = 0.5 * (right.hp - left.hp)
             sl = None
             if k_sl is not None and not sl_edge:
                 f2 = _lsq_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
@@ -306,17 +324,21 @@ def _vertex(r: np.ndarray, p: np.ndarray, k: int, circular: bool) -> tuple[float
 def _hysteresis_db(p: np.ndarray) -> float:
     """Rise (dB) that makes a minimum count as a null rather than a noise wiggle.
 
-    The noise is estimated from the median absolute second difference of the dB values
-    (for white noise of deviation s, the second difference has deviation s*sqrt(6));
-    the rise is ``_RISE_NOISE_FACTOR`` times that, clipped to [1, 6] dB.  On coarse
-    clean data the estimate also sees the pattern's own curvature; the upper clip keeps
-    real side lobes (which rise > 6 dB from a null) detectable.
+    Noise is estimated from second differences of the dB values (white noise of
+    deviation s gives second differences of deviation s*sqrt(6)).  The pattern's own
+    curvature also shows in them, four times more at twice the step, so the estimate
+    at step h (v1) and at step 2h (v2) separate the two: s^2 ~ (16 v1 - v2) / 15.
+    The rise is ``_RISE_NOISE_FACTOR`` s clipped to [1, 6] dB: clean coarse sweeps
+    get 1 dB, noisy dense ones enough to step over noise.
     """
-    if p.size < 5:
+    if p.size < 9:
         return _RISE_MIN_DB
-    d2 = p[2:] - 2.0 * p[1:-1] + p[:-2]
-    stride = -(-d2.size // 512)  # a subsample of <= 512 values is plenty for a median
-    sigma = 1.4826 * _median(np.abs(d2[::stride])) / np.sqrt(6.0)
+    stride = -(-p.size // 512)  # a subsample of <= 512 values is plenty for a median
+    d1 = p[2:] - 2.0 * p[1:-1] + p[:-2]
+    d2 = p[4:] - 2.0 * p[2:-2] + p[:-4]
+    v1 = (1.4826 * _median(np.abs(d1[::stride]))) ** 2 / 6.0
+    v2 = (1.4826 * _median(np.abs(d2[::stride]))) ** 2 / 6.0
+    sigma = np.sqrt(max(16.0 * v1 - v2, 0.0) / 15.0)
     return float(np.clip(_RISE_NOISE_FACTOR * sigma, _RISE_MIN_DB, _RISE_MAX_DB))
 
 
