@@ -87,6 +87,10 @@ class Player:
         self.t_start, self.t_end = span.t_start, span.t_end
         self.meta = self.reader.meta
         self.grid = not self.reader.has_ticks
+        if self.grid:  # imported: time starts at the first sample, not its batch's arrival
+            first = self.reader.first_sample_t()
+            if first is not None and first < self.t_start:
+                self.t_start = first
         self.speed = self._check_speed(speed)
         self.paused = False
         self.ended = False
@@ -95,6 +99,7 @@ class Player:
         self.ticks_fed = 0
         self._t = self.t_start
         self._next_grid = 1
+        self._last_grid_t: float | None = None
         self._it: Iterator[SessionItem] | None = None
         self._peek: SessionItem | None = None
         self._anchor_t = self.t_start
@@ -144,12 +149,13 @@ class Player:
     def _tick_grid(self, g: float) -> None:
         self.monitor.tick(g, SourceStats(state="receiving", messages=self.batches_fed))
         self.ticks_fed += 1
+        self._last_grid_t = g
 
     def _finish_grid(self) -> None:
         if not self.grid or self.ended:
             return
         self._grid_ticks_before(self.t_end, inclusive=True)
-        if self._grid_t(self._next_grid - 1) < self.t_end:
+        if self._last_grid_t is None or self._last_grid_t < self.t_end:
             self._tick_grid(self.t_end)
 
     # -- applying rows --------------------------------------------------------------------
@@ -301,6 +307,7 @@ class Player:
         self.ended = False
         if self.grid:
             self._next_grid = max(1, math.floor((w0 - self.t_start) / self.interval_s) + 1)
+            self._last_grid_t = None
         self._t = w0
         n = 0
         while (item := self._next()) is not None:

@@ -522,6 +522,11 @@ class SessionReader:
             return None
         return TimeSpan(min(lo), max(hi))
 
+    def first_sample_t(self) -> float | None:
+        """Sample time of the first stored sample (by row order)."""
+        v = self._one("SELECT t_first FROM batches ORDER BY id LIMIT 1")
+        return None if v is None else float(v)
+
     @property
     def has_ticks(self) -> bool:
         return self._one("SELECT id FROM ticks LIMIT 1") is not None
