@@ -145,7 +145,6 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
             # (the raw walk's width is biased narrow by noise).
             for _ in range(2):
                 top = _poly_peak(r, pr, ctr, half, circular) or top
-                top = _poly_peak(r, pr, top[0], half, circular) or top
                 sigma, cnt = top[2], top[3]
                 v_r, pk_db = top[0], top[1]
                 k = 2 * (cnt // 12) + 1
