@@ -36,6 +36,9 @@ _DB_TO_NEPER: float = math.log(10.0) / 10.0
 
 _AVERAGING: tuple[str, ...] = ("ema", "sweeps")
 
+#: Up to this many bins per batch the per-bin bookkeeping runs on Python scalars.
+_FEW_BINS: int = 4
+
 
 @dataclass(frozen=True, slots=True)
 class EstimatorConfig:
@@ -175,6 +178,7 @@ class RollingPattern:
         self._nb = cfg.n_bins
         w = cfg.bin_width_deg
         self._inv_w = 1.0 / w
+        self._c0 = 180.0 / w + 0.5
         # Bin i covers [centre_i - w/2, centre_i + w/2), centre_i = -180 + i*w; index =
         # floor((a + 180)/w + 1/2), where the top value n_bins folds onto bin 0 (the wrap).
         self._centres = -180.0 + w * np.arange(self._nb, dtype=np.float64)
@@ -253,7 +257,7 @@ class RollingPattern:
         lo = float(a.min())
         hi = float(a.max())
         if not (-180.0 <= lo and hi < 180.0 and math.isfinite(float(p.sum()))):
-            a, p = _clean(a, p, lo, hi)
+            a, p = _clean(a, p)
             if a.shape[0] == 0:
                 return
             lo = float(a.min())
@@ -262,15 +266,20 @@ class RollingPattern:
         nb = self._nb
         inv_w = self._inv_w
         self._samples += int(a.shape[0])
-        lin = np.exp(p * _DB_TO_NEPER)
-        # Work on the window of bins [i0, i0 + L) the batch touches, so the cost does
-        # not grow with the number of bins.  Index nb (just below +180) is bin 0.
-        i0 = int((lo + 180.0) * inv_w + 0.5)
-        i1 = int((hi + 180.0) * inv_w + 0.5)
+        lin = p * _DB_TO_NEPER
+        np.exp(lin, out=lin)
+        # Work on the window of bins [i0, i0 + span) the batch touches, so the cost does
+        # not grow with the number of bins.  Index nb (just below +180) is bin 0.  The
+        # scalar and the array index use the same float operations, hence agree.
+        c0 = self._c0
+        i0 = int(lo * inv_w + c0)
+        i1 = int(hi * inv_w + c0)
         seam = i1 >= nb
         if seam:
             i0 = 0
-        idx = ((a + 180.0) * inv_w + 0.5).astype(np.intp)
+        x = a * inv_w
+        x += c0
+        idx = x.astype(np.intp)
         if i0:
             idx -= i0
         span = i1 - i0 + 1
@@ -284,6 +293,13 @@ class RollingPattern:
         win = slice(i0, i0 + s.shape[0])
 
         bounds = self._boundaries(a, lo, hi)
+        if span <= _FEW_BINS and not bounds:
+            # A batch inside a few bins (the usual case at high sample rates): plain
+            # Python floats per touched bin beat a dozen small-array numpy calls.
+            self._sw_lo = min(self._sw_lo, lo)
+            self._sw_hi = max(self._sw_hi, hi)
+            self._update_few(i0, s.tolist(), c.tolist(), now)
+            return
         if not bounds:
             self._sw_sum[win] += s
             self._sw_cnt[win] += c
@@ -308,6 +324,38 @@ class RollingPattern:
             self._now_max = now
         else:
             self._last_t[tb] = np.maximum(lt, now)
+
+    def _update_few(self, i0: int, sums: list[float], counts: list[int], now: float) -> None:
+        """Scalar twin of the vector path for a batch within a few bins, no sweep end."""
+        sw_sum, sw_cnt, last_t = self._sw_sum, self._sw_cnt, self._last_t
+        ema = self._ema
+        later = now > self._now_max
+        if later:
+            self._now_max = now
+        for j, cj in enumerate(counts):
+            if not cj:
+                continue
+            b = i0 + j
+            sj = sums[j]
+            sw_sum[b] += sj
+            sw_cnt[b] += cj
+            lt = float(last_t[b])
+            if ema:
+                if later or lt < now:
+                    pp = float(self._p[b])
+                    al = -math.expm1((lt - now) * self._inv_tau)
+                else:  # pooled with the update at the same receive time
+                    pp = float(self._p_prev[b])
+                    al = float(self._alpha[b])
+                    sj += float(self._u_sum[b])
+                    cj += float(self._u_cnt[b])
+                self._p[b] = pp + al * (sj / cj - pp)
+                self._p_prev[b] = pp
+                self._alpha[b] = al
+                self._u_sum[b] = sj
+                self._u_cnt[b] = cj
+            if now > lt:
+                last_t[b] = now
 
     def _update_ema(self, tb: np.ndarray, ss: np.ndarray, cs: np.ndarray, lt: np.ndarray,
                     now: float) -> None:
@@ -377,22 +425,31 @@ class RollingPattern:
                 k += j + 1
                 continue
             seg = a[k:]
+            # Monotone in the direction of travel and starting within h of the furthest
+            # point: no retreat anywhere (cheaper than the running extreme below).
+            if d > 0 and seg[0] >= ext - h and not np.less(seg[1:], seg[:-1]).any():
+                ext = max(ext, float(seg[-1]))
+                break
+            if d < 0 and seg[0] <= ext + h and not np.greater(seg[1:], seg[:-1]).any():
+                ext = min(ext, float(seg[-1]))
+                break
+            # run = furthest angle so far (including the carried one); back = retreat.
             if d > 0:
-                thr = np.maximum.accumulate(seg)
-                np.maximum(thr, ext, out=thr)
-                ext_end = float(thr[-1])
-                thr -= h
-                hit = seg < thr
+                run = np.maximum.accumulate(seg)
+                if ext > run[0]:
+                    np.maximum(run, ext, out=run)
+                ext_end = float(run[-1])
+                back = np.subtract(run, seg, out=run)
             else:
-                thr = np.minimum.accumulate(seg)
-                np.minimum(thr, ext, out=thr)
-                ext_end = float(thr[-1])
-                thr += h
-                hit = seg > thr
-            j = int(np.argmax(hit))
-            if not hit[j]:
+                run = np.minimum.accumulate(seg)
+                if ext < run[0]:
+                    np.minimum(run, ext, out=run)
+                ext_end = float(run[-1])
+                back = np.subtract(seg, run, out=run)
+            if back.max() <= h:  # the usual case: no end of sweep in this batch
                 ext = ext_end
                 break
+            j = int((back > h).argmax())
             out.append(k + j)
             d = -d
             ext = float(a[k + j])
@@ -445,13 +502,14 @@ class RollingPattern:
                                power_db=10.0 * np.log10(lin))
 
 
-def _clean(a: np.ndarray, p: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, np.ndarray]:
-    """Angles wrapped into [-180, 180) and samples with a non-finite value dropped."""
+def _clean(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Angles wrapped into [-180, 180) and samples with a non-finite value dropped.
+
+    Only the angles outside [-180, 180) are changed, each by ``wrap_angle_deg``, so a
+    sample's wrapped value never depends on which batch it came in.
+    """
     with np.errstate(invalid="ignore"):
-        if -180.0 <= lo and hi < 540.0:  # the usual 0..360 convention: one subtraction
-            a = np.where(a >= 180.0, a - 360.0, a)
-        else:
-            a = wrap_angle_deg(a)
+        a = np.where((a >= -180.0) & (a < 180.0), a, wrap_angle_deg(a))
     p = np.asarray(p, dtype=np.float64)
     ok = np.isfinite(a) & np.isfinite(p)
     if not ok.all():

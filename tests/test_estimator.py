@@ -176,10 +176,11 @@ def test_ema_first_fill_takes_the_batch_mean_in_linear_power() -> None:
     assert snap.power_db[0] == pytest.approx(10 * math.log10(mean_lin), abs=1e-12)
 
 
-def test_ema_batches_received_at_the_same_time_pool() -> None:
+@pytest.mark.parametrize("lo, hi", [(-5.0, 5.0), (0.6, 2.4)])  # wide and narrow batches
+def test_ema_batches_received_at_the_same_time_pool(lo: float, hi: float) -> None:
     """Splitting a batch without changing ``now`` leaves the state unchanged."""
     rng = np.random.default_rng(3)
-    ang = rng.uniform(-5, 5, 400)
+    ang = rng.uniform(lo, hi, 400)
     pw = rng.normal(-30, 3, 400)
     one = RollingPattern(EstimatorConfig(bin_deg=1.0))
     two = RollingPattern(EstimatorConfig(bin_deg=1.0))
