@@ -82,7 +82,8 @@ class ZmqSource:
                  fmt: str = "auto", hwm: int = DEFAULT_HWM,
                  max_message_bytes: int = DEFAULT_MAX_MESSAGE_BYTES,
                  stale_after_s: float = 3.0, clock: Callable[[], float] = time.time,
-                 drain_max: int = DEFAULT_DRAIN_MAX, heartbeat_ivl_ms: int = 1000,
+                 drain_max: int = DEFAULT_DRAIN_MAX, drain_budget_s: float = 0.005,
+                 heartbeat_ivl_ms: int = 1000,
                  heartbeat_timeout_ms: int = 3000, reconnect_ivl_ms: int = 200,
                  poll_ms: int = 200) -> None:
         self.endpoint = check_endpoint(endpoint)
@@ -94,6 +95,7 @@ class ZmqSource:
         self.max_message_bytes = int(max_message_bytes)
         self.stale_after_s = float(stale_after_s)
         self.drain_max = int(drain_max)
+        self.drain_budget_s = float(drain_budget_s)
         self.heartbeat_ivl_ms = int(heartbeat_ivl_ms)
         self.heartbeat_timeout_ms = int(heartbeat_timeout_ms)
         self.reconnect_ivl_ms = int(reconnect_ivl_ms)
@@ -203,25 +205,32 @@ class ZmqSource:
                 except zmq.Again:
                     return msgs
                 budget -= 1
-                if not s.rcvmore:
+                if not s.getsockopt(zmq.RCVMORE):
                     self._discarding = False
                     break
             else:
                 return msgs
-        for _ in range(self.drain_max):
+        more = s.getsockopt
+        rcvmore = zmq.RCVMORE
+        noblock = zmq.NOBLOCK
+        clock = time.perf_counter
+        deadline = clock() + self.drain_budget_s
+        for i in range(self.drain_max):
             try:
-                f = recv(zmq.NOBLOCK)
+                f = recv(noblock)
             except zmq.Again:
                 break
-            if not s.rcvmore:
+            if not more(rcvmore):
                 msgs.append([f])
+                if not i & 255 and clock() > deadline:
+                    break
                 continue
             parts = [f]
             while True:
-                g = recv(zmq.NOBLOCK)
+                g = recv(noblock)
                 if len(parts) <= MAX_PARTS:
                     parts.append(g)
-                if not s.rcvmore:
+                if not more(rcvmore):
                     break
                 budget -= 1
                 if budget <= 0:

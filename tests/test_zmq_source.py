@@ -1,0 +1,337 @@
+"""The ZeroMQ source on real sockets (loopback tcp and ipc), and the live driver."""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import os
+import signal
+import socket
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import psutil
+import pytest
+import zmq
+
+from stream.estimator import EstimatorConfig, RollingPattern
+from stream.live import LiveDriver, status_change
+from stream.monitor import Monitor
+from stream.synth import SynthConfig, run_publisher
+from stream.wire import encode_binary_batch, encode_json_single
+from stream.zmq_source import ZmqSource
+
+pytestmark = pytest.mark.timeout(30)
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+async def collect(src: ZmqSource, until, timeout: float = 5.0) -> list:
+    """Batches from ``src`` until ``until(batches)`` is true or ``timeout`` passes."""
+    got: list = []
+
+    async def run() -> None:
+        async for bs in src.batches():
+            got.extend(bs)
+            if until(got):
+                return
+
+    with contextlib.suppress(TimeoutError):
+        await asyncio.wait_for(run(), timeout)
+    return got
+
+
+class Pub:
+    """A PUB socket in this process (the test drives what is sent)."""
+
+    def __init__(self, endpoint: str, bind: bool = True, sndhwm: int = 1000) -> None:
+        self.ctx = zmq.Context()
+        self.sock = self.ctx.socket(zmq.PUB)
+        self.sock.setsockopt(zmq.LINGER, 0)
+        self.sock.setsockopt(zmq.SNDHWM, sndhwm)
+        if bind:
+            self.sock.bind(endpoint)
+        else:
+            self.sock.connect(endpoint)
+
+    def send(self, frames) -> None:
+        self.sock.send_multipart(frames)
+
+    def close(self) -> None:
+        self.sock.close(0)
+        self.ctx.term()
+
+
+def start_publisher(config: SynthConfig, endpoint: str) -> tuple[threading.Event,
+                                                                threading.Thread, list]:
+    stop = threading.Event()
+    ready: list = []
+    th = threading.Thread(target=run_publisher, args=(endpoint, config, stop),
+                          kwargs={"on_ready": ready.append}, daemon=True)
+    th.start()
+    t = time.monotonic()
+    while not ready and time.monotonic() - t < 5:
+        time.sleep(0.01)
+    assert ready, "publisher did not bind"
+    return stop, th, ready
+
+
+async def test_tcp_synth_publisher_end_to_end():
+    stop, th, ready = start_publisher(SynthConfig(rate_sps=4000, batch=200),
+                                      "tcp://127.0.0.1:*")
+    src = ZmqSource(ready[0])
+    try:
+        got = await collect(src, lambda g: sum(len(b) for b in g) >= 4000)
+        n = sum(len(b) for b in got)
+        assert n >= 4000
+        st = src.stats(time.time())
+        assert st.state == "receiving" and st.lost == 0 and not st.rejected
+        assert all(b.epoch and b.calibrated for b in got)
+        seqs = [b.seq for b in got]
+        assert seqs == list(range(seqs[0], seqs[0] + len(seqs)))
+    finally:
+        stop.set()
+        th.join(5)
+        await src.aclose()
+    assert src.stats(time.time()).state == "ended"
+
+
+async def test_ipc_bind_mode_with_topic_filter(tmp_path):
+    ep = f"ipc://{tmp_path}/beam.sock"
+    src = ZmqSource(ep, bind=True, topic=b"mast-a")
+    pub = Pub(ep, bind=False)
+    try:
+        async def sender() -> None:
+            for i in range(400):
+                pub.send(encode_json_single(1.0, -40.0, None, i, "e", topic=b"mast-b"))
+                pub.send(encode_json_single(2.0, -41.0, None, i, "e", topic=b"mast-a"))
+                await asyncio.sleep(0.002)
+
+        task = asyncio.create_task(sender())
+        got = await collect(src, lambda g: any(b.seq == 399 for b in g), timeout=6)
+        await task
+        assert got and {b.stream for b in got} == {"mast-a"}
+        assert np.all(np.concatenate([b.angle_deg for b in got]) == 2.0)
+    finally:
+        await src.aclose()
+        pub.close()
+
+
+async def test_oversize_frame_drops_connection_and_source_reconnects():
+    port = free_port()
+    ep = f"tcp://127.0.0.1:{port}"
+    pub = Pub(ep)
+    src = ZmqSource(ep, max_message_bytes=10_000, reconnect_ivl_ms=100)
+    stop = asyncio.Event()
+
+    async def sender() -> None:
+        i = 0
+        while not stop.is_set():
+            pub.send(encode_json_single(1.0, -40.0, None, i, "e"))
+            if i == 100:
+                pub.send([b"x" * 50_000])  # over MAXMSGSIZE: libzmq drops the peer
+            i += 1
+            await asyncio.sleep(0.002)
+
+    task = asyncio.create_task(sender())
+    try:
+        got = await collect(src, lambda g: src.reconnects >= 1 and len(g) > 0
+                            and g[-1].seq is not None and g[-1].seq > 400, timeout=8)
+        assert src.reconnects >= 1 and src.disconnects >= 1
+        assert got[-1].seq > 400  # receiving again after the reconnect
+        assert src.stats(time.time()).lost > 0  # the gap is accounted
+    finally:
+        stop.set()
+        await task
+        await src.aclose()
+        pub.close()
+
+
+async def test_many_part_messages_are_refused_without_blocking():
+    port = free_port()
+    ep = f"tcp://127.0.0.1:{port}"
+    pub = Pub(ep, sndhwm=100_000)
+    src = ZmqSource(ep)
+    try:
+        # wait for the subscription to reach the publisher
+        for i in range(200):
+            pub.send(encode_json_single(1.0, -40.0, None, i, "e"))
+            got = await collect(src, lambda g: len(g) > 0, timeout=0.05)
+            if got:
+                break
+        pub.sock.send_multipart([b"p"] * 5_000)
+        pub.sock.send_multipart([b"q"] * 60_000)  # discarded over several drains
+        pub.send(encode_json_single(3.0, -40.0, None, 1000, "e"))
+        got = await collect(src, lambda g: any(b.angle_deg[0] == 3.0 for b in g), timeout=8)
+        assert any(b.angle_deg[0] == 3.0 for b in got)
+        assert src.stats(time.time()).rejected.get("too_many_parts") == 2
+    finally:
+        await src.aclose()
+        pub.close()
+
+
+FLOOD = """
+import sys, zmq
+ctx = zmq.Context(); s = ctx.socket(zmq.PUB); s.setsockopt(zmq.SNDHWM, 50000)
+s.bind(sys.argv[1])
+f = b'{"angle_deg":1.0,"power_dbm":-40.0,"t":1.0}'
+while True:
+    for _ in range(1000):
+        s.send(f)
+"""
+
+
+async def test_flooded_source_does_not_starve_a_timer():
+    """A publisher process sending as fast as it can: the drain must leave the event
+    loop free for a 10 ms timer (the loop runs the UI and the ticks)."""
+    port = free_port()
+    ep = f"tcp://127.0.0.1:{port}"
+    proc = subprocess.Popen([sys.executable, "-c", FLOOD, ep])
+    src = ZmqSource(ep)
+    ticks = 0
+    gaps: list[float] = []
+
+    async def timer() -> None:
+        nonlocal ticks
+        last = time.monotonic()
+        while True:
+            await asyncio.sleep(0.01)
+            now = time.monotonic()
+            gaps.append(now - last)
+            last = now
+            ticks += 1
+
+    try:
+        got = await collect(src, lambda g: len(g) > 0, timeout=5)
+        assert got, "flood publisher did not start"
+        t = asyncio.create_task(timer())
+        got = await collect(src, lambda g: False, timeout=1.5)
+        t.cancel()
+    finally:
+        proc.kill()
+        proc.wait(5)
+        await src.aclose()
+    assert sum(len(b) for b in got) > 20_000
+    assert ticks >= 40, f"timer ran {ticks} times in 1.5 s (150 when idle)"
+    assert max(gaps[1:]) < 0.25
+
+
+async def test_slow_consumer_memory_bounded_and_losses_counted():
+    port = free_port()
+    ep = f"tcp://127.0.0.1:{port}"
+    src = ZmqSource(ep, hwm=500)
+    pub = Pub(ep, sndhwm=500)
+    proc = psutil.Process()
+    try:
+        # make sure the subscription is up
+        for _ in range(200):
+            pub.send(encode_json_single(1.0, -40.0, None, 0, "e"))
+            if await collect(src, lambda g: len(g) > 0, timeout=0.05):
+                break
+        rss0 = proc.memory_info().rss
+        payload = np.zeros(2000)
+        n_sent = 3000  # 3000 x 48 kB = 144 MB offered while nobody reads
+        for i in range(1, n_sent + 1):
+            pub.send(encode_binary_batch(payload, payload - 40.0, seq=i, epoch="e"))
+        await asyncio.sleep(0.3)
+        rss_peak = proc.memory_info().rss
+        got = await collect(src, lambda g: False, timeout=1.0)
+        received = sum(1 for b in got if len(b) == 2000)
+        assert received < n_sent
+        # the dropped tail shows as a gap once the next message arrives
+        pub.send(encode_binary_batch(payload[:1], payload[:1], seq=n_sent + 1, epoch="e"))
+        got += await collect(src, lambda g: any(b.seq == n_sent + 1 for b in g), timeout=3)
+        assert got[-1].seq == n_sent + 1
+        st = src.stats(time.time())
+        assert received + st.lost == n_sent
+        assert st.lost > 0
+        assert (rss_peak - rss0) < 100e6, f"RSS grew {(rss_peak - rss0) / 1e6:.0f} MB"
+    finally:
+        await src.aclose()
+        pub.close()
+
+
+async def test_aclose_does_not_hang_with_pending_poll():
+    port = free_port()
+    src = ZmqSource(f"tcp://127.0.0.1:{port}")
+    task = asyncio.create_task(collect(src, lambda g: False, timeout=10))
+    await asyncio.sleep(0.2)
+    task.cancel()
+    with contextlib.suppress(asyncio.CancelledError):
+        await task
+    t = time.monotonic()
+    await src.aclose()
+    assert time.monotonic() - t < 1.0
+
+
+def test_bad_endpoint_is_a_user_error():
+    from stream.errors import UserError
+    with pytest.raises(UserError):
+        ZmqSource("localhost:5557")
+
+
+def test_status_change_names():
+    assert status_change(None, "waiting") == "waiting"
+    assert status_change("waiting", "receiving") == "receiving"
+    assert status_change("receiving", "stale") == "stale"
+    assert status_change("stale", "receiving") == "resumed"
+    assert status_change("receiving", "receiving") is None
+    assert status_change("receiving", "ended") == "ended"
+
+
+def _synth_proc(port: int) -> subprocess.Popen:
+    return subprocess.Popen(
+        [sys.executable, "-m", "tui.cli", "synth", "--endpoint", f"tcp://127.0.0.1:{port}",
+         "--rate-sps", "4000", "--batch", "200"],
+        cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+        env={**os.environ, "PYTHONPATH": str(ROOT)})
+
+
+async def test_publisher_killed_and_restarted_goes_stale_then_resumes():
+    port = free_port()
+    proc = _synth_proc(port)
+    src = ZmqSource(f"tcp://127.0.0.1:{port}", stale_after_s=0.6, reconnect_ivl_ms=100)
+    monitor = Monitor(RollingPattern(EstimatorConfig()))
+    events: list = []
+    monitor.event_sinks.append(events.append)
+    driver = LiveDriver(src, monitor, interval_s=0.05)
+    stop = asyncio.Event()
+    run = asyncio.create_task(driver.run(stop))
+    proc2 = None
+    try:
+        async def wait_for(state: str, timeout: float) -> None:
+            t = time.monotonic()
+            while time.monotonic() - t < timeout:
+                if any(e.kind == "status" and e.data["state"] == state for e in events):
+                    return
+                await asyncio.sleep(0.05)
+            raise AssertionError(f"no {state!r} status; got {[e.data for e in events]}")
+
+        await wait_for("receiving", 8)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(5)
+        await wait_for("stale", 5)
+        proc2 = _synth_proc(port)
+        await wait_for("resumed", 8)
+        st = src.stats(time.time())
+        assert st.restarts == 1  # new epoch seen, same monitor and source
+        assert monitor.last_tick is not None and monitor.last_tick.source.state == "receiving"
+    finally:
+        stop.set()
+        await asyncio.wait_for(run, 5)
+        for p in (proc, proc2):
+            if p is not None and p.poll() is None:
+                p.send_signal(signal.SIGINT)
+                p.wait(5)
+    names = [e.data["state"] for e in events if e.kind == "status"]
+    assert names[:2] == ["waiting", "receiving"] and names[-1] == "ended"
+    assert names.index("stale") < names.index("resumed")
