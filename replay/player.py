@@ -106,6 +106,8 @@ class Player:
         self._anchor_wall = 0.0
         self._running = False
         self._seek_request: float | None = None
+        self._initial_target = (getattr(monitor, "target_deg", None),
+                                getattr(monitor, "tolerance_deg", None))
         self._wake: asyncio.Event | None = None
 
     # -- small helpers --------------------------------------------------------------------
@@ -294,6 +296,7 @@ class Player:
         start_id = self.reader.start_id(w0) if w0 > self.t_start else 0
         self._reset_pipeline()
         m = self.monitor
+        m.target_deg, m.tolerance_deg = self._initial_target
         if start_id:
             tev, ref, _cleared = self.reader.state_before(start_id + 1)
             if tev is not None:

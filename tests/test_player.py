@@ -214,3 +214,39 @@ async def test_paced_run_pause_and_seek(live_session):
     stop.set()
     await asyncio.wait_for(task, 2.0)
     p.close()
+
+
+async def test_screen_keys_drive_the_player(live_session):
+    """The beam screen in replay mode: pause, seek and event keys move the player."""
+    from tui.app import LobewatchApp
+
+    path = live_session[0]
+    mon = make_monitor()
+    player = Player(path, mon, speed=1.0, hold_at_end=True)
+    app = LobewatchApp(mon, player, mode="replay", refresh_hz=0)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await pilot.pause(0.2)
+        await pilot.press("space")
+        await pilot.pause(0.1)
+        assert player.paused
+        t0 = player.position.t
+        await pilot.press("right")
+        for _ in range(50):
+            await pilot.pause(0.05)
+            if player.position.t >= t0 + 10 - 1e-6:
+                break
+        assert player.position.t == pytest.approx(min(t0 + 10, player.t_end))
+        assert mon.last_tick is not None and mon.last_tick.t <= player.position.t
+        t1 = player.position.t
+        await pilot.press("left_square_bracket")
+        for _ in range(50):
+            await pilot.pause(0.05)
+            if player.position.t < t1:
+                break
+        before = [e.t for e in player.reader.events() if e.t < t1 - 1e-6]
+        assert player.position.t == pytest.approx(before[-1])
+        await pilot.press("plus")
+        await pilot.pause(0.1)
+        assert player.speed > 1.0
+        await pilot.press("q")
+    player.close()
