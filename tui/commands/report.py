@@ -37,6 +37,11 @@ Files: CSV (.csv .tsv .txt) with a header naming angle_deg and power_dbm (or pow
 for relative dB), optional t; '#' starts a comment line; comma, semicolon or tab
 separated.  JSON Lines (.jsonl .ndjson) of sample messages.  Session files (.lws).
 
+With --elements the textbook array model is measured too: its pattern is computed on
+a 0.05-degree grid over the same angles the file covers and measured by the same code,
+so a +/-60 deg sweep is compared with what the model shows inside +/-60 deg.  Model
+levels are relative to the model's own peak (0 dB).
+
 A value the data cannot determine (the pattern never falls 3 dB inside the sweep, a
 single lobe, the back direction not swept) prints as n/a with a note saying why
 (null in --json).
@@ -52,7 +57,8 @@ examples:
 
 Safety: stay out of the main beam of energised antennas while sweeping and follow
 your local RF exposure limits; work at height only as your training and local rules
-allow; transmit only on spectrum you are licensed for.
+allow; transmit only on spectrum you are licensed for.  Local codes and licensed
+practice come first.
 """
 
 
