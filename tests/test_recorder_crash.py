@@ -125,3 +125,84 @@ def test_kill_minus_nine_loses_at_most_a_second(publisher, tmp_path):
                 for r in due:
                     assert again[r["t"]] == r
     assert checked_with_data >= 3  # enough kills landed after real data was flowing
+
+
+class _Sinks:
+    """The three sink lists of a monitor, nothing else."""
+
+    def __init__(self) -> None:
+        self.batch_sinks: list = []
+        self.tick_sinks: list = []
+        self.event_sinks: list = []
+        self.reference = None
+
+
+def _feed(m: _Sinks, rx_t: float) -> None:
+    import numpy as np
+
+    from stream.batch import SampleBatch
+    b = SampleBatch.from_arrays(np.linspace(-5, 5, 10), np.zeros(10), rx_t=rx_t)
+    for s in m.batch_sinks:
+        s(b)
+
+
+def test_commits_follow_recorded_time_not_the_wall_clock(tmp_path):
+    """Commit as soon as 0.5 s of recorded time has passed: another process sees the
+    rows without the recorder being closed."""
+    from replay.recorder import Recorder
+    m = _Sinks()
+    path = tmp_path / "c.lws"
+    rec = Recorder(path, {}, threaded=False, commit_interval_s=0.5).attach(m)
+
+    def stored() -> int:
+        with SessionReader(path) as r:
+            return r.counts()["batches"]
+
+    for k in range(5):  # 0.0 .. 0.4 s: not yet due
+        _feed(m, 100.0 + 0.1 * k)
+    assert stored() == 0
+    _feed(m, 100.5)  # 0.5 s after the first row: commit
+    assert stored() == 6 and rec.commits == 1
+    _feed(m, 100.6)
+    assert stored() == 6
+    rec.close()
+    assert stored() == 7 and not rec.recording and rec.size_bytes > 0
+    assert m.batch_sinks == [] and m.tick_sinks == [] and m.event_sinks == []
+
+
+def test_write_failure_stops_recording_without_raising_into_the_pipeline(tmp_path):
+    from replay.recorder import Recorder
+    from stream.errors import UserError
+    m = _Sinks()
+    rec = Recorder(tmp_path / "f.lws", {}, threaded=True, commit_interval_s=0.5).attach(m)
+
+    def broken() -> None:
+        raise UserError("disk full (simulated)")
+
+    rec._writer.commit = broken  # the next commit fails like a full disk
+    for k in range(20):
+        _feed(m, 10.0 + 0.1 * k)  # never raises into the caller
+    rec.flush()
+    assert rec.error is not None and "disk full" in rec.error and not rec.recording
+    with pytest.raises(UserError, match="recording stopped: .*disk full"):
+        rec.close()
+
+
+def test_reference_trace_is_stored_with_its_event(tmp_path):
+    import numpy as np
+
+    from replay.recorder import Recorder
+    from stream.beam import BeamMetrics
+    from stream.tick import Event, Reference
+    m = _Sinks()
+    path = tmp_path / "r.lws"
+    rec = Recorder(path, {}, threaded=False).attach(m)
+    m.reference = Reference(5.0, np.array([-1.0, 0.0, 1.0]), np.array([-3.0, 0.0, -3.0]),
+                            BeamMetrics(peak_angle_deg=0.0, hpbw_deg=2.0))
+    for s in m.event_sinks:
+        s(Event(5.0, "reference", {"peak_angle_deg": 0.0}))
+    rec.close()
+    with SessionReader(path) as r:
+        (eid, ev), = r.event_rows()
+        ref = r.reference_for(eid, ev)
+    assert np.array_equal(ref.power_db, [-3.0, 0.0, -3.0]) and ref.metrics.hpbw_deg == 2.0
