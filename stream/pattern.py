@@ -157,8 +157,12 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
                 left.shift(-float(r[j]))
                 if right.hp is None or left.hp is None:
                     break
-                half = 0.5 * (right.hp + left.hp)
+                new_half = 0.5 * (right.hp + left.hp)
+                converged = abs(new_half - half) <= 0.05 * half
+                half = new_half
                 ctr = 0.5 * (right.hp - left.hp)
+                if converged:
+                    break
             sl = None
             if k_sl is not None and not sl_edge:
                 f2 = _lsq_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
@@ -501,6 +505,10 @@ def _median(x: np.ndarray) -> float:
     return float(np.sort(x)[x.size // 2])  # sort: partition is slow on equal values
 
 
+#: Grid (in units of the fit half-width) on which the fitted quartic's maximum is sought.
+_PEAK_GRID = np.linspace(-1.0, 1.0, 401)
+
+
 def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
                circular: bool, rms_only: bool = False
                ) -> tuple[float, float, float, int] | None:
@@ -528,7 +536,7 @@ def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
     if rms_only:
         return float("nan"), float("nan"), rms, cnt
     c4, c3, c2, c1, c0 = (float(c) for c in coef)
-    ug = np.linspace(-1.0, 1.0, 401)
+    ug = _PEAK_GRID
     yg = (((c4 * ug + c3) * ug + c2) * ug + c1) * ug + c0
     g = int(yg.argmax())
     ub, yb = float(ug[g]), float(yg[g])
