@@ -13,6 +13,7 @@ bias the pattern low where the signal fades (Jensen's inequality; common practic
 from __future__ import annotations
 
 import math
+import numbers
 from collections import deque
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -40,6 +41,14 @@ _AVERAGING: tuple[str, ...] = ("ema", "sweeps")
 _FEW_BINS: int = 4
 
 
+def _is_real(v: object) -> bool:
+    return isinstance(v, numbers.Real) and not isinstance(v, bool)
+
+
+def _is_int(v: object) -> bool:
+    return isinstance(v, numbers.Integral) and not isinstance(v, bool)
+
+
 @dataclass(frozen=True, slots=True)
 class EstimatorConfig:
     """Settings of the rolling pattern.
@@ -61,24 +70,20 @@ class EstimatorConfig:
 
     def __post_init__(self) -> None:
         b = self.bin_deg
-        if not (isinstance(b, int | float) and math.isfinite(b) and 0.1 <= b <= 10.0):
+        if not (_is_real(b) and math.isfinite(b) and 0.1 <= b <= 10.0):
             raise ValueError(f"bin width must be between 0.1 and 10 degrees, got {b!r}")
         if self.averaging not in _AVERAGING:
             raise ValueError(f"averaging must be 'ema' or 'sweeps', got {self.averaging!r}")
-        if not (isinstance(self.tau_s, int | float) and math.isfinite(self.tau_s)
-                and self.tau_s > 0):
+        if not (_is_real(self.tau_s) and math.isfinite(self.tau_s) and self.tau_s > 0):
             raise ValueError(f"averaging time constant must be a positive number of seconds, "
                              f"got {self.tau_s!r}")
-        if isinstance(self.sweeps_k, bool) or not isinstance(self.sweeps_k, int) \
-                or not 1 <= self.sweeps_k <= 1000:
+        if not (_is_int(self.sweeps_k) and 1 <= self.sweeps_k <= 1000):
             raise ValueError(f"sweeps to average must be a whole number from 1 to 1000, "
                              f"got {self.sweeps_k!r}")
-        if not (isinstance(self.stale_after_s, int | float) and self.stale_after_s > 0
-                and not math.isnan(self.stale_after_s)):
+        if not (_is_real(self.stale_after_s) and self.stale_after_s > 0):
             raise ValueError(f"bin maximum age must be a positive number of seconds, "
                              f"got {self.stale_after_s!r}")
-        if isinstance(self.history, bool) or not isinstance(self.history, int) \
-                or not 1 <= self.history <= 1_000_000:
+        if not (_is_int(self.history) and 1 <= self.history <= 1_000_000):
             raise ValueError(f"sweep history must be a whole number from 1 to 1000000, "
                              f"got {self.history!r}")
 
