@@ -385,11 +385,18 @@ class AlarmEngine:
                 self._track_baseline(tr, tick)
         return events
 
-    def active(self, include_quiet: bool = False) -> list[AlarmStatus]:
-        """Alarms for the UI: raised/settling first (worst severity, then oldest), then
-        suspect ones; quiet ones last when ``include_quiet``."""
-        out = [self._status(tr) for tr in self._tracks.values()
-               if include_quiet or tr.state != "quiet"]
+    def active(self, include_pending: bool = False,
+               include_quiet: bool = False) -> list[AlarmStatus]:
+        """Raised alarms (``raised``/``settling``) for the UI, worst severity first, then
+        oldest.  ``include_pending`` appends the ``suspect`` ones (condition seen, hold
+        not over; severity ``cleared``), ``include_quiet`` also the quiet ones (implies
+        pending)."""
+        shown = {"raised", "settling"}
+        if include_pending or include_quiet:
+            shown.add("suspect")
+        if include_quiet:
+            shown.add("quiet")
+        out = [self._status(tr) for tr in self._tracks.values() if tr.state in shown]
         phase = {"raised": 0, "settling": 0, "suspect": 1, "quiet": 2}
 
         def order(s: AlarmStatus) -> tuple:
