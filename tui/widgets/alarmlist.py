@@ -100,6 +100,7 @@ class AlarmList(Static):
             return
         self._last_key = key
         text = Text(no_wrap=True, overflow="ellipsis")
+        n_before = len(self.lines)
         self.lines = []
         if not rows:
             text.append(empty, style="italic")
@@ -112,7 +113,8 @@ class AlarmList(Static):
             text.append(" ✓ " if ack else " ! ", style="bold")
             text.append(line)
             self.lines.append(f"{tag}{' ✓ ' if ack else ' ! '}{line}")
-        self.update(text)
+        # the list's height follows its line count: lay out again only when that changes
+        self.update(text, layout=len(self.lines) != n_before)
         self.set_class(bool(rows), "-alarming")
 
 

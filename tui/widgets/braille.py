@@ -116,6 +116,40 @@ class BrailleCanvas:
             px, py = px[keep], py[keep]
         self.points(dots, px, py)
 
+    def hline(self, dots: np.ndarray, y: float, x0: float, x1: float,
+              dash: tuple[int, int] | None = None) -> None:
+        """Horizontal line at dot row ``y`` from ``x0`` to ``x1`` (fast path)."""
+        yi = int(np.rint(y))
+        if not 0 <= yi < self.dot_height:
+            return
+        a = max(0, int(np.rint(min(x0, x1))))
+        b = min(self.dot_width - 1, int(np.rint(max(x0, x1))))
+        if b < a:
+            return
+        step = dash[0] + dash[1] if dash else 1
+        if dash is None or dash[0] == 1:
+            dots[yi, a:b + 1:step] = True
+        else:
+            idx = np.arange(a, b + 1)
+            dots[yi, idx[((idx - a) % step) < dash[0]]] = True
+
+    def vline(self, dots: np.ndarray, x: float, y0: float, y1: float,
+              dash: tuple[int, int] | None = None) -> None:
+        """Vertical line at dot column ``x`` from ``y0`` to ``y1`` (fast path)."""
+        xi = int(np.rint(x))
+        if not 0 <= xi < self.dot_width:
+            return
+        a = max(0, int(np.rint(min(y0, y1))))
+        b = min(self.dot_height - 1, int(np.rint(max(y0, y1))))
+        if b < a:
+            return
+        step = dash[0] + dash[1] if dash else 1
+        if dash is None or dash[0] == 1:
+            dots[a:b + 1:step, xi] = True
+        else:
+            idx = np.arange(a, b + 1)
+            dots[idx[((idx - a) % step) < dash[0]], xi] = True
+
     def text(self, col: int, row: int, s: str, style: str, *, align: str = "left") -> bool:
         """Write ``s`` starting at cell (col, row) (``align`` "right" ends it there,
         "center" centres it).  Returns False, writing nothing, if it does not fit."""
@@ -138,17 +172,28 @@ class BrailleCanvas:
         return not bool(np.any(self._text[row, col:col + n] != ""))
 
     # -- output ----------------------------------------------------------------------
+    def add_layer(self, dots: np.ndarray, style: str) -> None:
+        """Add a ready-made dot layer (e.g. a cached grid); it is not copied."""
+        if dots.shape != (self.dot_height, self.dot_width):
+            raise ValueError(f"layer shape {dots.shape} does not match the canvas")
+        self._style_index(style)
+        self._layers.append((dots, style))
+
     def cells(self) -> tuple[np.ndarray, np.ndarray]:
         """The characters (H x W, '<U1') and style indices (-1 = base) of every cell."""
         h, w = self.height, self.width
-        codes = np.zeros((h, w), dtype=np.uint8)
         style = np.full((h, w), -1, dtype=np.int16)
-        for dots, name in self._layers:
-            c = (dots.reshape(h, 4, w, 2) * DOT_BITS[None, :, None, :]).sum(
-                axis=(1, 3), dtype=np.uint16).astype(np.uint8)
-            codes |= c
-            style[c > 0] = self._style_names.index(name)
-        chars = _GLYPHS[codes]
+        if self._layers:
+            combined = np.zeros((self.dot_height, self.dot_width), dtype=bool)
+            for dots, name in self._layers:
+                combined |= dots
+                has = dots.reshape(h, 4, w, 2).any(axis=(1, 3))
+                style[has] = self._style_names.index(name)
+            codes = np.einsum("iajb,ab->ij", combined.reshape(h, 4, w, 2).astype(np.uint8),
+                              DOT_BITS, dtype=np.uint8)
+            chars = _GLYPHS[codes]
+        else:
+            chars = np.full((h, w), " ", dtype="<U1")
         over = self._text != ""
         chars[over] = self._text[over]
         style[over] = self._text_style[over]
@@ -157,18 +202,28 @@ class BrailleCanvas:
     def to_strips(self, styles: dict[str, Style], base: Style) -> list[Strip]:
         """Rows of segments, one run per change of style."""
         chars, style = self.cells()
+        h, w = self.height, self.width
+        if h == 0 or w == 0:
+            return [Strip([], w) for _ in range(h)]
         resolved = [base + styles.get(name, Style()) for name in self._style_names]
+        rows = np.ascontiguousarray(chars).view(f"<U{w}").reshape(h).tolist()
+        # A blank cell looks the same in any foreground style: let it join the run on
+        # its left, so dotted grids do not split rows into hundreds of segments.
+        fill = (chars == " ") & (style == -1)
+        pos = np.where(fill, 0, np.arange(w, dtype=np.intp)[None, :])
+        np.maximum.accumulate(pos, axis=1, out=pos)
+        style = np.take_along_axis(style, pos, axis=1)
+        cuts_all = np.diff(style, axis=1) != 0
         strips: list[Strip] = []
-        for r in range(self.height):
+        for r in range(h):
+            text = rows[r]
             row_style = style[r]
-            row_chars = chars[r]
-            cuts = np.flatnonzero(np.diff(row_style)) + 1
-            bounds = [0, *cuts.tolist(), self.width]
+            bounds = [0, *(np.flatnonzero(cuts_all[r]) + 1).tolist(), w]
             segs = []
             for a, b in zip(bounds[:-1], bounds[1:], strict=False):
                 si = int(row_style[a])
-                segs.append(Segment("".join(row_chars[a:b]), resolved[si] if si >= 0 else base))
-            strips.append(Strip(segs, self.width))
+                segs.append(Segment(text[a:b], resolved[si] if si >= 0 else base))
+            strips.append(Strip(segs, w))
         return strips
 
     def to_text(self) -> str:
@@ -194,16 +249,25 @@ class CanvasWidget(Widget):
         super().__init__(name=name, id=id, classes=classes)
         self._strips: list[Strip] = []
         self._drawn_size: Size | None = None
-        self.last_draw_s: float = 0.0
+        self._style_cache: dict[str, Style] = {}
+        self._base: Style | None = None
 
     def draw(self, canvas: BrailleCanvas) -> None:  # pragma: no cover - abstract
         raise NotImplementedError
 
     def _styles(self, canvas: BrailleCanvas) -> dict[str, Style]:
-        out: dict[str, Style] = {}
+        """Rich styles of the component classes in use (cached until the CSS changes)."""
+        cache = self._style_cache
         for name in canvas._style_names:
-            out[name] = self.get_component_rich_style(name, partial=True, default=Style())
-        return out
+            if name not in cache:
+                cache[name] = self.get_component_rich_style(name, partial=True,
+                                                            default=Style())
+        return cache
+
+    def _base_style(self) -> Style:
+        if self._base is None:
+            self._base = self.rich_style
+        return self._base
 
     def make_canvas(self) -> BrailleCanvas:
         size = self.size
@@ -217,7 +281,7 @@ class CanvasWidget(Widget):
         if not self.is_mounted:
             return
         canvas = self.make_canvas()
-        self._strips = canvas.to_strips(self._styles(canvas), self.rich_style)
+        self._strips = canvas.to_strips(self._styles(canvas), self._base_style())
         self._drawn_size = self.size
         self.refresh()
 
@@ -226,13 +290,15 @@ class CanvasWidget(Widget):
 
     def notify_style_update(self) -> None:
         super().notify_style_update()
+        self._style_cache = {}
+        self._base = None
         self._strips = []
 
     def render_line(self, y: int) -> Strip:
         if self._drawn_size != self.size or not self._strips:
             canvas = self.make_canvas()
-            self._strips = canvas.to_strips(self._styles(canvas), self.rich_style)
+            self._strips = canvas.to_strips(self._styles(canvas), self._base_style())
             self._drawn_size = self.size
         if 0 <= y < len(self._strips):
             return self._strips[y]
-        return Strip.blank(self.size.width, self.rich_style)
+        return Strip.blank(self.size.width, self._base_style())

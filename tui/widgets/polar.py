@@ -137,6 +137,10 @@ class PolarPlot(CanvasWidget):
         self.tick: Tick | None = None
         self.scale = "db"
         self.geometry: PolarGeometry | None = None
+        # Grid layer + labels and the per-dot polar coordinates depend only on the
+        # geometry and scale: computed once per size, reused every frame.
+        self._grid_cache: dict[tuple, tuple[np.ndarray, list[tuple]]] = {}
+        self._coord_cache: dict[tuple, tuple] = {}
 
     def show(self, tick: Tick | None) -> None:
         self.tick = tick
@@ -195,7 +199,25 @@ class PolarPlot(CanvasWidget):
         canvas.text(col, row, PEAK_GLYPH, "polar--peak")
 
     def _draw_grid(self, canvas: BrailleCanvas, geo: PolarGeometry, floor_db: float) -> None:
+        key = (geo, self.scale, floor_db)
+        cached = self._grid_cache.get(key)
+        if cached is not None:
+            canvas.add_layer(cached[0], "polar--grid")
+            for col, row, text, style, align in cached[1]:
+                canvas.text(col, row, text, style, align=align)
+            return
+        if len(self._grid_cache) > 8:
+            self._grid_cache.clear()
+        ops: list[tuple] = []
+
+        def put(col: int, row: int, text: str, style: str, align: str = "left") -> bool:
+            ok = canvas.text(col, row, text, style, align=align)
+            if ok:
+                ops.append((col, row, text, style, align))
+            return ok
+
         grid = canvas.layer("polar--grid")
+        self._grid_cache[key] = (grid, ops)
         if geo.radius < 4:
             return
         if geo.half:
@@ -223,11 +245,11 @@ class PolarPlot(CanvasWidget):
             col, row = int(np.rint(lx)) // 2, int(np.rint(ly)) // 4
             text = _signed(float(s))
             if s == 0 or abs(s) == 180:
-                canvas.text(col, row, text, "polar--label", align="center")
+                put(col, row, text, "polar--label", align="center")
             elif s < 0:
-                canvas.text(col, row, text, "polar--label", align="right")
+                put(col, row, text, "polar--label", align="right")
             else:
-                canvas.text(col, row, text, "polar--label")
+                put(col, row, text, "polar--label")
         # ring labels: below the left half of the horizontal axis
         row = int(geo.cy) // 4 + 1
         unit = "dB" if self.scale == "db" else "lin"
@@ -237,12 +259,12 @@ class PolarPlot(CanvasWidget):
             x, _ = geo.to_dots(-90.0, float(f))
             col = int(np.rint(x)) // 2
             if col >= free_from and canvas.text_free(col, row, len(text)) \
-                    and canvas.text(col, row, text, "polar--label"):
+                    and put(col, row, text, "polar--label"):
                 free_from = col + len(text) + 1
                 placed = True
         if placed:
             x, _ = geo.to_dots(90.0, 0.5)
-            canvas.text(int(x) // 2, row, unit, "polar--label", align="center")
+            put(int(x) // 2, row, unit, "polar--label", align="center")
 
     def _draw_halfpower(self, canvas: BrailleCanvas, geo: PolarGeometry, tick: Tick,
                         peak_db: float, floor_db: float, left: float, right: float) -> None:
@@ -252,22 +274,32 @@ class PolarPlot(CanvasWidget):
         r = geo.radius
         if r < 3:
             return
-        x0, x1 = int(max(0, geo.cx - r)), int(min(canvas.dot_width, geo.cx + r + 1))
-        y0, y1 = int(max(0, geo.cy - r)), int(min(canvas.dot_height, geo.cy + r + 1))
-        yy, xx = np.mgrid[y0:y1, x0:x1]
-        sparse = ((xx % 2) == 0) & ((yy % 2) == 0) & (((xx // 2 + yy // 2) % 2) == 0)
-        dx = xx - geo.cx
-        dy = geo.cy - yy
-        ang = np.rad2deg(np.arctan2(dx, dy))
-        rad = np.hypot(dx, dy) / r
+        coords = self._coord_cache.get((geo,))
+        if coords is None:
+            if len(self._coord_cache) > 8:
+                self._coord_cache.clear()
+            x0, x1 = int(max(0, geo.cx - r)), int(min(canvas.dot_width, geo.cx + r + 1))
+            y0, y1 = int(max(0, geo.cy - r)), int(min(canvas.dot_height, geo.cy + r + 1))
+            yy, xx = np.mgrid[y0:y1, x0:x1]
+            sparse = ((xx % 2) == 0) & ((yy % 2) == 0) & (((xx // 2 + yy // 2) % 2) == 0)
+            sy, sx = np.nonzero(sparse)
+            dx = sx + x0 - geo.cx
+            dy = geo.cy - (sy + y0)
+            ang = np.rad2deg(np.arctan2(dx, dy))
+            rad = np.hypot(dx, dy) / r
+            coords = (sy + y0, sx + x0, ang, rad)
+            self._coord_cache[(geo,)] = coords
+        py, px, ang, rad = coords
         lo, hi = left, right
         span = (hi - lo) % 360.0
-        inside = ((ang - lo) % 360.0) <= span
+        inside = (((ang - lo) % 360.0) <= span) & (rad > 0.04)
         order = np.argsort(tick.angle_deg)
         pat = radial_fraction(tick.power_db[order] - peak_db, self.scale, floor_db)
-        limit = np.interp(ang, tick.angle_deg[order], pat, period=None if geo.half else 360.0)
-        mask = sparse & inside & (rad <= limit) & (rad > 0.04)
-        layer[y0:y1, x0:x1] |= mask
+        sel = np.flatnonzero(inside)
+        limit = np.interp(ang[sel], tick.angle_deg[order], pat,
+                          period=None if geo.half else 360.0)
+        keep = sel[rad[sel] <= limit]
+        layer[py[keep], px[keep]] = True
         edge_frac = radial_fraction(np.array([HALF_POWER_DB]), self.scale, floor_db)[0]
         for a in (left, right):
             ex, ey = geo.to_dots(np.array([a, a]), np.array([0.0, edge_frac]))

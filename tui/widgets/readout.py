@@ -129,10 +129,11 @@ class Readout(Widget):
         self._last[wid] = text
         w = self.query_one(f"#{wid}")
         if isinstance(w, Digits):
-            w.update(text)
+            w.update(text)  # asks for a layout only when its width changes
         else:
             assert isinstance(w, Static)
-            w.update(text)
+            # every value cell has a fixed size: no layout pass for a new value
+            w.update(text, layout=False)
         if tooltip is not None:
             w.tooltip = tooltip
 

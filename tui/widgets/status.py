@@ -111,7 +111,7 @@ class StatusLine(Static):
             text.append(f" {_mmss(pos)}/{_mmss(total)}")
         if text.plain != self.plain:
             self.plain = text.plain
-            self.update(text)
+            self.update(text, layout=False)  # one fixed-size line
         self.set_class(state == "stale" or info.stalled_s is not None, "-stale")
 
 

@@ -108,7 +108,7 @@ class TracePlot(CanvasWidget):
         v = p_hi
         while v >= p_lo - 1e-9:
             y = float(yd(np.array(v)))
-            canvas.line(grid, [px0, px1], [y, y], dash=(1, 5))
+            canvas.hline(grid, y, px0, px1, dash=(1, 5))
             canvas.text(x0_col - 1, int(np.rint(y)) // 4, f"{v:.0f}", "trace--label",
                         align="right")
             v -= step
@@ -118,7 +118,7 @@ class TracePlot(CanvasWidget):
         free = 0
         while a <= a_hi + 1e-9:
             x = float(xd(np.array(a)))
-            canvas.line(grid, [x, x], [py0, py1], dash=(1, 7))
+            canvas.vline(grid, x, py0, py1, dash=(1, 7))
             text = f"{a:+.0f}" if a else "0"
             col = int(np.rint(x)) // 2 - len(text) // 2
             col = min(max(col, x0_col), w - len(text))
@@ -138,7 +138,7 @@ class TracePlot(CanvasWidget):
             tol = tick.tolerance_deg or 0.0
             for ta in {tick.target_deg - tol, tick.target_deg + tol}:
                 x = float(xd(np.array(ta)))
-                canvas.line(tl, [x, x], [py0, py1], dash=(1, 2))
+                canvas.vline(tl, x, py0, py1, dash=(1, 2))
         # model overlay
         if self.model is not None:
             ma, mp = self._model_curve(a_lo, a_hi, max(64, (px1 - px0)))
@@ -150,7 +150,7 @@ class TracePlot(CanvasWidget):
         # -3 dB line
         hp = canvas.layer("trace--halfpower")
         y3 = float(yd(np.array(peak_db + HALF_POWER_DB)))
-        canvas.line(hp, [px0, px1], [y3, y3], dash=(2, 2))
+        canvas.hline(hp, y3, px0, px1, dash=(2, 2))
         la, lp = break_gaps(tick.angle_deg, tick.power_db, False)
         canvas.line(canvas.layer("trace--pattern"), xd(la), yd(lp))
         pk = tick.metrics.peak_angle_deg

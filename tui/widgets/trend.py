@@ -88,7 +88,7 @@ class TrendPlot(CanvasWidget):
         free_rows: set[int] = set()
         while v <= hi + 1e-9:
             y = float(yd(np.array(v)))
-            canvas.line(grid, [px0, px1], [y, y], dash=(1, 5))
+            canvas.hline(grid, y, px0, px1, dash=(1, 5))
             row = int(np.rint(y)) // 4
             if row not in free_rows and row < plot_rows:
                 canvas.text(lab - 1, row, f"{v:+.0f}°" if step >= 1 else f"{v:+.1f}",
@@ -105,7 +105,7 @@ class TrendPlot(CanvasWidget):
             sel = ((xx % 6) == 0) & ((yy % 4) == 1)
             band[yy[sel], xx[sel]] = True
             yt = float(yd(np.array(tick.target_deg)))
-            canvas.line(band, [px0, px1], [yt, yt], dash=(3, 3))
+            canvas.hline(band, yt, px0, px1, dash=(3, 3))
         if ts.size:
             pts = canvas.layer("trend--points")
             canvas.line(pts, xd(ts), yd(pk))
