@@ -35,7 +35,7 @@ class Recorder:
 
     def __init__(self, path: str | os.PathLike[str], metadata: dict[str, Any] | None = None,
                  force: bool = False, commit_interval_s: float = 0.5, *,
-                 threaded: bool = True, max_queue: int = 8192,
+                 threaded: bool = True, max_queue: int = 2048,
                  max_pending_bytes: int = 64 * 1024 * 1024) -> None:
         self.path = os.fspath(path)
         self.commit_interval_s = float(commit_interval_s)

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import heapq
 import json
-import math
 import os
 import sqlite3
 import struct
@@ -706,7 +705,3 @@ def is_session_file(path: str | os.PathLike[str]) -> bool:
         return False
     return head[:16] == _SQLITE_MAGIC and int.from_bytes(head[68:72], "big") == APPLICATION_ID
 
-
-def finite_or_none(x: float | None) -> float | None:
-    """``x`` if finite, else None (for JSON-safe metadata)."""
-    return x if x is not None and math.isfinite(x) else None
