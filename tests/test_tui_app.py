@@ -18,7 +18,7 @@ from tui.app import LobewatchApp
 from tui.screens import HelpScreen
 from tui.widgets.alarmlist import AlarmList
 from tui.widgets.polar import PolarPlot
-from tui.widgets.readout import Readout
+from tui.widgets.readout import MetricGrid, Readout
 from tui.widgets.sample import sample_model, sample_tick
 from tui.widgets.status import StatusLine
 
@@ -122,11 +122,19 @@ async def test_readout_shows_the_values_of_a_known_tick() -> None:
         # the figure is on screen, and the label tooltips name the metric keys
         text = screen_text(app)
         assert "PEAK BEARING" in text and "HPBW" in text
-        assert str(app.query_one("#rd-l-hpbw").tooltip).startswith("hpbw_deg")
-        assert str(app.query_one("#rd-l-sll").tooltip).startswith("sll_db")
         assert str(app.query_one("#rd-peak-label").tooltip).startswith("peak_angle_deg")
+        grid = app.query_one(MetricGrid)
+        # hovering a label or its value shows a tooltip naming the metric key
+        await pilot.hover(grid, offset=(1, 0))  # row 0, left pair: HPBW label
+        assert str(grid.tooltip).startswith("hpbw_deg")
+        await pilot.hover(grid, offset=(grid._pair_width() + 9, 2))  # row 2, right: value
+        assert str(grid.tooltip).startswith("sll_angle_deg")
+        await pilot.hover(grid, offset=(2, 3))  # row 3, left: peak power
+        assert str(grid.tooltip).startswith("peak_power_db")
         # an undetermined value's tooltip gives the reason
-        assert "back direction" in str(app.query_one("#rd-v-fb").tooltip)
+        await pilot.hover(grid, offset=(grid._pair_width() + 2, 1))  # F/B
+        assert str(grid.tooltip).startswith("front_to_back_db")
+        assert "back direction" in str(grid.tooltip)
 
 
 def _sweep_batches(model: ArrayModel, n_sweeps: int, t0: float) -> list[SampleBatch]:

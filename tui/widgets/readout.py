@@ -10,8 +10,12 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from rich.segment import Segment
+from rich.style import Style
+from textual import events
 from textual.app import ComposeResult
-from textual.containers import Grid, Horizontal, Vertical
+from textual.containers import Horizontal, Vertical
+from textual.strip import Strip
 from textual.widget import Widget
 from textual.widgets import Digits, Static
 
@@ -45,6 +49,99 @@ FIELDS: tuple[Field, ...] = (
     Field("lost", "lost", "lost", "messages missing from the sequence numbering"),
     Field("rej", "rej", "rejected", "messages rejected by the decoder (all reasons)"),
 )
+
+
+#: Width of a label cell in the metric grid, columns.
+LABEL_W = 7
+
+
+class MetricGrid(Widget):
+    """The label/value pairs, two per row, drawn through the Line API as one widget
+    (a widget per cell made the whole-screen repaint several ms dearer).
+
+    The tooltip follows the mouse: over a label or its value it names the metric key
+    and says what it means, plus the reason when the value is undetermined.
+    """
+
+    COMPONENT_CLASSES = {"metric-grid--label", "metric-grid--value"}
+
+    DEFAULT_CSS = """
+    MetricGrid { height: 6; width: 1fr; }
+    MetricGrid > .metric-grid--label { color: $text-muted; }
+    """
+
+    def __init__(self, fields: tuple[Field, ...] = FIELDS, *, name: str | None = None,
+                 id: str | None = None, classes: str | None = None) -> None:
+        super().__init__(name=name, id=id, classes=classes)
+        self.fields = fields
+        self.texts: dict[str, str] = {f.id: DASH for f in fields}
+        self.reasons: dict[str, str] = {}
+        self._lines: dict[int, Strip] = {}
+
+    def set_value(self, fid: str, text: str, reason: str | None = None) -> None:
+        if reason:
+            self.reasons[fid] = reason
+        else:
+            self.reasons.pop(fid, None)
+        if self.texts.get(fid) != text:
+            self.texts[fid] = text
+            self._lines.clear()
+            self.refresh()
+
+    def _pair_width(self) -> int:
+        return max(LABEL_W + 2, (self.size.width - 1) // 2)
+
+    def field_at(self, x: int, y: int) -> Field | None:
+        """The field whose label or value is at (x, y) in the widget."""
+        pw = self._pair_width()
+        col = 0 if x < pw else (1 if x > pw else None)
+        if col is None:
+            return None
+        i = 2 * y + col
+        return self.fields[i] if 0 <= y and i < len(self.fields) else None
+
+    def tooltip_for(self, fid: str) -> str:
+        f = next(f for f in self.fields if f.id == fid)
+        tip = f"{f.key}: {f.help}"
+        if fid in self.reasons:
+            tip += f" — undetermined: {self.reasons[fid]}"
+        return tip
+
+    def on_mouse_move(self, event: events.MouseMove) -> None:
+        f = self.field_at(event.x, event.y)
+        tip = self.tooltip_for(f.id) if f is not None else None
+        if tip != self.tooltip:
+            self.tooltip = tip
+
+    def notify_style_update(self) -> None:
+        super().notify_style_update()
+        self._lines.clear()
+
+    def render_line(self, y: int) -> Strip:
+        cached = self._lines.get(y)
+        if cached is not None and cached.cell_length == self.size.width:
+            return cached
+        width = self.size.width
+        base = self.rich_style
+        lab = base + self.get_component_rich_style("metric-grid--label", partial=True,
+                                                    default=Style())
+        val = base + self.get_component_rich_style("metric-grid--value", partial=True,
+                                                    default=Style())
+        pw = self._pair_width()
+        segs: list[Segment] = []
+        for col in (0, 1):
+            i = 2 * y + col
+            if i >= len(self.fields):
+                break
+            f = self.fields[i]
+            vw = pw - LABEL_W
+            segs.append(Segment(f.label[:LABEL_W - 1].ljust(LABEL_W), lab))
+            segs.append(Segment(self.texts[f.id][:vw].ljust(vw), val))
+            if col == 0:
+                segs.append(Segment(" ", base))
+        strip = Strip(segs).adjust_cell_length(width, base)
+        self._lines[y] = strip
+        return strip
 
 
 def fmt(value: float | None, unit: str = "", digits: int = 1, signed: bool = False) -> str:
@@ -89,8 +186,6 @@ class Readout(Widget):
     Readout #rd-big { height: 3; }
     Readout Digits { width: auto; }
     Readout #rd-side { width: 1fr; padding-left: 1; }
-    Readout #rd-grid { grid-size: 4; grid-columns: 5 1fr 6 1fr; grid-rows: 1;
-                       height: auto; grid-gutter: 0 1; }
     Readout Static { height: 1; text-wrap: nowrap; text-overflow: ellipsis; }
     """
 
@@ -114,11 +209,7 @@ class Readout(Widget):
                     "target_deg ± tolerance_deg: the bearing the beam should hold")
                 yield Static(DASH, id="rd-offset", classes="rd-value").with_tooltip(
                     "offset = peak_angle_deg - target_deg")
-        with Grid(id="rd-grid"):
-            for f in FIELDS:
-                yield Static(f.label, id=f"rd-l-{f.id}", classes="rd-label").with_tooltip(
-                    f"{f.key}: {f.help}")
-                yield Static(DASH, id=f"rd-v-{f.id}", classes="rd-value")
+        yield MetricGrid(FIELDS, id="rd-grid")
         yield Static(DASH, id="rd-source", classes="rd-value").with_tooltip(
             "state: source state (waiting, receiving, stale, ended)")
 
@@ -168,9 +259,11 @@ class Readout(Widget):
             self._set("rd-offset", "")
         reasons = m.reasons
 
+        grid = self.query_one(MetricGrid)
+
         def metric(fid: str, key: str, text: str) -> None:
-            tip = reasons.get(key) if text == DASH else None
-            self._set(f"rd-v-{fid}", text, tooltip=tip if tip else "")
+            self._last[f"rd-v-{fid}"] = text
+            grid.set_value(fid, text, reasons.get(key) if text == DASH else None)
 
         metric("hpbw", "hpbw_deg", fmt(m.hpbw_deg, "°"))
         metric("bw10", "bw10_deg", fmt(m.bw10_deg, "°"))
@@ -180,10 +273,10 @@ class Readout(Widget):
         metric("slla", "sll_angle_deg", fmt(m.sll_angle_deg, "°", signed=True))
         metric("pwr", "peak_power_db", fmt(m.peak_power_db, unit))
         metric("exp", "expected_hpbw_deg", fmt(tick.expected_hpbw_deg, "°"))
-        self._set("rd-v-rate", fmt_rate(tick.rate_sps))
-        self._set("rd-v-sweeps", fmt_count(tick.sweeps))
-        self._set("rd-v-lost", fmt_count(tick.source.lost))
-        self._set("rd-v-rej", fmt_count(tick.source.rejected_total))
+        metric("rate", "rate_sps", fmt_rate(tick.rate_sps))
+        metric("sweeps", "sweeps", fmt_count(tick.sweeps))
+        metric("lost", "lost", fmt_count(tick.source.lost))
+        metric("rej", "rejected", fmt_count(tick.source.rejected_total))
         self._set("rd-source", f"source {tick.source.state}"
                   + (f" · {fmt_count(tick.samples)} samples" if tick.samples else ""))
         src = self.query_one("#rd-source")
