@@ -394,11 +394,18 @@ async def test_alarm_list_shows_active_alarms_worst_first() -> None:
 
     mon = make_monitor(alarms=Engine())
     app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20)
-    async with app.run_test(size=(80, 24)) as pilot:
+    async with app.run_test(size=(160, 30)) as pilot:
         await settle(pilot, app)
         lines = app.query_one(AlarmList).lines
         assert lines[0].startswith("CRIT ! ") and "gain_loss 7.2 dB vs 3.0 dB" in lines[0]
         assert lines[1].startswith("MINR ✓ ") and "drift 2.5° vs 2.0°" in lines[1]
+        # narrow screen: shorter forms, still value and threshold, nothing cut
+        await pilot.resize_terminal(80, 24)
+        await pilot.pause(0.2)
+        alarm_list = app.query_one(AlarmList)
+        lines = alarm_list.lines
+        assert "gain 7.2 dB vs 3.0 dB" in lines[0] and "drift 2.5° vs 2.0°" in lines[1]
+        assert all(len(line) <= alarm_list.content_size.width for line in lines)
 
 
 # -- sizes ------------------------------------------------------------------------------

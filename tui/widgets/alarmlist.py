@@ -22,10 +22,18 @@ SEVERITY_TAGS: dict[str, str] = {
 }
 SEVERITY_ORDER: tuple[str, ...] = tuple(SEVERITY_TAGS)
 
-#: Units of each rule's value, for display.
+#: Units of each rule's value, for display (when the status does not say).
 RULE_UNITS: dict[str, str] = {
     "drift": "°", "broadening": "°", "gain_loss": " dB", "sidelobe_rise": " dB",
     "stale": " s", "input": "/s", "watch": " dB",
+}
+#: Display forms of the units an alarm status reports.
+UNIT_TEXT: dict[str, str] = {"deg": "°", "dB": " dB", "db": " dB", "s": " s", "/s": "/s",
+                             "%": "%", "": ""}
+#: Short rule names for narrow screens.
+SHORT_RULES: dict[str, str] = {
+    "broadening": "broad", "gain_loss": "gain", "sidelobe_rise": "sll", "watch": "watch",
+    "drift": "drift", "stale": "stale", "input": "input",
 }
 
 
@@ -45,24 +53,40 @@ def _num(v: Any, unit: str) -> str:
     return "—"
 
 
-def format_alarm(status: Any) -> tuple[str, str, bool]:
-    """(severity, one-line text, acknowledged) of an alarm status object."""
+def alarm_variants(status: Any) -> tuple[str, list[str], bool]:
+    """(severity, texts from longest to shortest, acknowledged) of an alarm status."""
     severity = str(_get(status, "severity", default="indeterminate")).lower()
     rule = str(_get(status, "rule", default="?"))
     state = str(_get(status, "state", default=""))
-    since = _get(status, "since", "since_t", "raised_t", "t_raised", "t")
+    since = _get(status, "since_t", "since", "raised_t", "t")
     ack = bool(_get(status, "acknowledged", "acked", default=False))
-    unit = RULE_UNITS.get(rule, "")
-    value = _get(status, "value")
-    threshold = _get(status, "threshold")
-    when = time.strftime("%H:%M:%S", time.localtime(float(since))) if since else "--:--:--"
-    name = rule
+    unit_raw = _get(status, "unit")
+    unit = UNIT_TEXT.get(str(unit_raw), f" {unit_raw}") if unit_raw is not None \
+        else RULE_UNITS.get(rule, "")
+    value = _num(_get(status, "value"), unit)
+    threshold = _num(_get(status, "threshold"), unit)
+    lt = time.localtime(float(since)) if since else None
+    hms = time.strftime("%H:%M:%S", lt) if lt else "--:--:--"
+    hm = time.strftime("%H:%M", lt) if lt else "--:--"
     watch = _get(status, "watch_deg")
-    if watch is not None:
-        name = f"{rule}@{float(watch):+.0f}°"
-    text = f"{when} {name} {_num(value, unit)} vs {_num(threshold, unit)}"
-    if state and state not in ("raised", "active"):
-        text += f" ({state})"
+    where = f"@{float(watch):+.0f}°" if watch is not None else ""
+    name, short = rule + where, SHORT_RULES.get(rule, rule) + where
+    note = f" ({state})" if state and state not in ("raised", "active") else ""
+    texts = [
+        f"{hms} {name} {value} vs {threshold}{note}",
+        f"{hm} {name} {value} vs {threshold}{note}",
+        f"{hm} {short} {value} vs {threshold}{note}",
+        f"{hm} {short} {value}/{threshold}{note}",
+        f"{short} {value}/{threshold}",
+    ]
+    return severity, texts, ack
+
+
+def format_alarm(status: Any, width: int = 1000) -> tuple[str, str, bool]:
+    """(severity, the longest text fitting ``width`` after the tag, acknowledged)."""
+    severity, texts, ack = alarm_variants(status)
+    room = width - 7  # "CRIT ! "
+    text = next((t for t in texts if len(t) <= room), texts[-1])
     return severity, text, ack
 
 
@@ -89,7 +113,8 @@ class AlarmList(Static):
         except Exception as exc:  # the list must never take the screen down
             self._render_lines([], f"alarm list unavailable: {exc}")
             return
-        rows = [format_alarm(a) for a in active]
+        width = self.content_size.width or 80
+        rows = [format_alarm(a, width) for a in active]
         rows.sort(key=lambda r: (SEVERITY_ORDER.index(r[0]) if r[0] in SEVERITY_ORDER
                                  else len(SEVERITY_ORDER), r[1]))
         self._render_lines(rows, "no active alarms")
