@@ -53,6 +53,9 @@ BACK_COVER_DEG: float = 5.0
 DUPLICATE_TOL_DEG: float = 1e-9
 #: A sweep closes the circle when its largest gap is at most this many typical steps.
 _CIRCLE_GAP_FACTOR: float = 2.0
+#: A side lobe fitted this far above the fitted peak means no main lobe can be named;
+#: up to it, an equal lobe (a grating lobe) gives sll_db = 0.
+_SLL_ABOVE_PEAK_DB: float = 0.1
 #: Power spread below which a pattern is flat (no beam), dB.
 _FLAT_DB: float = 1e-9
 #: Bounds of the null-detection hysteresis, dB (see :func:`_hysteresis_db`).
@@ -119,6 +122,7 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         ic = i
 
     v_r, pk_db = _vertex(r, pr, ic, circular)
+    ps = pr  # the series the lobes are walked on (a moving average when noisy)
     # Samples out to the outermost half-power crossings (side lobes stay below -3 dB):
     # few means a coarse sweep, whose side lobes may rise only a few dB between
     # sampled nulls.
@@ -163,6 +167,9 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
                 ctr = 0.5 * (right.hp - left.hp)
                 if converged:
                     break
+            if right.hp is not None and left.hp is not None and not (
+                    -left.hp <= v_r <= right.hp):
+                v_r = 0.5 * (right.hp - left.hp)  # fit ran off the lobe: use its centre
             sl = None
             if k_sl is not None and not sl_edge:
                 f2 = _lsq_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
@@ -208,15 +215,19 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         reasons["sll_db"] = reasons["sll_angle_deg"] = (
             f"the highest side level is on the edge of the sweep ({edge:.2f} deg) and "
             "still rising; the side lobe may lie outside the scanned span")
+    elif sl[1] - pk_db > _SLL_ABOVE_PEAK_DB:
+        reasons["sll_db"] = reasons["sll_angle_deg"] = (
+            f"a lobe outside the main lobe is {sl[1] - pk_db:.1f} dB above it: the data "
+            "are too noisy (or show several beams) to name one main lobe")
     else:
-        vals["sll_db"] = sl[1] - pk_db
+        vals["sll_db"] = min(sl[1] - pk_db, 0.0)
         vals["sll_angle_deg"] = _out(x_pk + sl[0], report_wrapped)
 
     # Front-to-back ratio.
     back = float(vals["peak_angle_deg"]) + 180.0  # type: ignore[arg-type]
-    d_back = np.abs((x - back + 180.0) % 360.0 - 180.0)
+    d_back = np.abs((r - (v_r + 180.0) + 180.0) % 360.0 - 180.0)
     if float(d_back.min()) <= BACK_COVER_DEG:
-        vals["front_to_back_db"] = pk_db - float(p[d_back <= BACK_WINDOW_DEG].max())
+        vals["front_to_back_db"] = pk_db - float(ps[d_back <= BACK_WINDOW_DEG].max())
     else:
         reasons["front_to_back_db"] = (
             f"the data do not cover the back direction ({_wrap(back):.1f} deg, opposite "
@@ -259,6 +270,7 @@ def _frame(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool, 
     Returns ``(x, p, circular, report_wrapped)`` with ``x`` strictly increasing.
     """
     w = a % 360.0
+    w[w >= 360.0] = 0.0  # a tiny negative angle rounds to 360.0; it is 0
     order = np.argsort(w, kind="stable")
     ws = w[order]
     ps = p[order]
@@ -405,6 +417,8 @@ def _walk(r: np.ndarray, p: np.ndarray, lvl3: float, lvl10: float, rise: float) 
         stop = nidx
     s.hp = _crossing(r, p, lvl3, stop)
     s.bw10 = _crossing(r, p, lvl10, stop)
+    if s.null is not None:  # the V fit may not move a null inside a level crossing
+        s.null = max(s.null, s.hp or 0.0, s.bw10 or 0.0)
     return s
 
 
