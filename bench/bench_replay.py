@@ -105,6 +105,22 @@ def read_path(path: str) -> tuple[float, int]:
     return n / (time.perf_counter() - t0), n
 
 
+def pipeline_only(path: str) -> tuple[float, int]:
+    """Samples/s of the pipeline alone: the same batches and ticks, from memory."""
+    with SessionReader(path) as reader:
+        items = list(reader.iter_items())
+    mon = Monitor(RollingPattern(), AlarmEngine(), ArrayModel(4))
+    t0 = time.perf_counter()
+    n = 0
+    for it in items:
+        if it.kind == "batch":
+            mon.ingest(it.value)
+            n += len(it.value)
+        elif it.kind == "tick":
+            mon.tick(it.t, it.value)
+    return n / (time.perf_counter() - t0), n
+
+
 def replay(path: str) -> tuple[float, int]:
     """Samples/s of `lobewatch replay --headless` (in-process, output to /dev/null)."""
     mon = Monitor(RollingPattern(), AlarmEngine(), ArrayModel(4))
@@ -177,13 +193,14 @@ def main() -> int:
         t0 = time.perf_counter()
         generate(path, args.samples)
         gen_s = time.perf_counter() - t0
-        raws, reps, reads = [], [], []
+        raws, reps, reads, pipes = [], [], [], []
         for _ in range(args.runs):  # interleaved, so drift hits all alike
             raws.append(raw_read(path)[0])
             reps.append(replay(path)[0])
             reads.append(read_path(path)[0])
+            pipes.append(pipeline_only(path)[0])
         raw, rep = statistics.median(raws), statistics.median(reps)
-        rd = statistics.median(reads)
+        rd, pipe = statistics.median(reads), statistics.median(pipes)
         size_mb = os.path.getsize(path) / 1e6
         paced = record_paced(os.path.join(d, "paced.lws"))
         unpaced = record_unpaced(os.path.join(d, "unpaced.lws"))
@@ -193,6 +210,7 @@ def main() -> int:
         "replay_sps": round(rep), "raw_read_sps": round(raw),
         "replay_ratio": round(rep / raw, 3),
         "read_path_sps": round(rd), "read_path_ratio": round(rd / raw, 3),
+        "pipeline_only_sps": round(pipe),
         "replay_pass": rep >= 5e6 and rep / raw >= 0.5,
         "record_paced": {k: round(v, 2) for k, v in paced.items()},
         "record_unpaced_sps": round(unpaced),
@@ -207,6 +225,7 @@ def main() -> int:
     print(f"{'replay / raw':<34}{rep / raw:>16.3f}  >= 0.5")
     print(f"{'session read path, no pipeline':<34}{rd:>16,.0f}  samples/s")
     print(f"{'read path / raw':<34}{rd / raw:>16.3f}")
+    print(f"{'pipeline alone, batches in memory':<34}{pipe:>16,.0f}  samples/s")
     print(f"{'record, paced 1 M/s: rate':<34}{paced['rate_sps']:>16,.0f}  samples/s")
     print(f"{'  worst feed lag':<34}{paced['worst_lag_ms']:>16.1f}  ms")
     print(f"{'  max recorder queue':<34}{paced['max_queue_batches']:>16.0f}  batches")

@@ -21,6 +21,8 @@ from __future__ import annotations
 import asyncio
 import math
 import os
+import queue
+import threading
 import time
 from collections.abc import Callable, Iterator
 from typing import Any, NamedTuple
@@ -37,6 +39,87 @@ SWEEPS_WARMUP_S: float = 30.0
 WARMUP_TAUS: float = 5.0
 #: Items applied between yields to the event loop when running unpaced.
 _CHUNK = 64
+
+
+class Prefetcher:
+    """Reads session rows ahead in a helper thread.
+
+    SQLite and zlib release the GIL while they read and check rows, so on a second
+    core the file is read while the pipeline works on the previous batches.  Rows are
+    handed over in chunks through a short queue (bounded memory); a read error is
+    re-raised in the consuming thread.
+    """
+
+    _END = object()
+
+    def __init__(self, reader: SessionReader, after_id: int, chunk: int = 16,
+                 depth: int = 8) -> None:
+        self._q: queue.Queue[Any] = queue.Queue(maxsize=depth)
+        self._stop = threading.Event()
+        self._chunk = chunk
+        self._buf: list[SessionItem] = []
+        self._pos = 0
+        self._done = False
+        self._thread = threading.Thread(target=self._run, args=(reader, after_id),
+                                        name="lobewatch-prefetch", daemon=True)
+        self._thread.start()
+
+    def _put(self, x: Any) -> bool:
+        while not self._stop.is_set():
+            try:
+                self._q.put(x, timeout=0.05)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def _run(self, reader: SessionReader, after_id: int) -> None:
+        it = reader.iter_items(after_id=after_id)
+        chunk: list[SessionItem] = []
+        try:
+            for item in it:
+                chunk.append(item)
+                if len(chunk) >= self._chunk:
+                    if not self._put(chunk):
+                        return
+                    chunk = []
+            if chunk and not self._put(chunk):
+                return
+            self._put(self._END)
+        except BaseException as exc:  # rows read so far, then the error, to the consumer
+            if not chunk or self._put(chunk):
+                self._put(exc)
+        finally:
+            it.close()
+
+    def __iter__(self) -> Prefetcher:
+        return self
+
+    def __next__(self) -> SessionItem:
+        if self._pos >= len(self._buf):
+            if self._done:
+                raise StopIteration
+            got = self._q.get()
+            if got is self._END:
+                self._done = True
+                raise StopIteration
+            if isinstance(got, BaseException):
+                self._done = True
+                raise got
+            self._buf, self._pos = got, 0
+        item = self._buf[self._pos]
+        self._pos += 1
+        return item
+
+    def close(self) -> None:
+        """Stop the helper thread and wait for it (before the reader is used again)."""
+        self._stop.set()
+        while self._thread.is_alive():
+            try:
+                self._q.get_nowait()
+            except queue.Empty:
+                self._thread.join(0.01)
+        self._done = True
 
 
 class PlaybackPosition(NamedTuple):
@@ -69,8 +152,9 @@ class Player:
     def __init__(self, path: str | os.PathLike[str], monitor: Any, speed: float = 1.0,
                  clock: Callable[[], float] = time.monotonic, *,
                  interval_s: float = DEFAULT_INTERVAL_S, warmup_s: float | None = None,
-                 hold_at_end: bool = False) -> None:
+                 hold_at_end: bool = False, prefetch: bool = True) -> None:
         self.path = os.fspath(path)
+        self.prefetch = prefetch
         self.monitor = monitor
         self.clock = clock
         if not interval_s > 0:
@@ -126,9 +210,23 @@ class Player:
                            self.t_end))
         return PlaybackPosition(t, self.t_start, self.t_end)
 
+    def _open_items(self, after_id: int) -> Iterator[SessionItem]:
+        self._close_items()
+        if self.prefetch:
+            self._it = Prefetcher(self.reader, after_id)
+        else:
+            self._it = self.reader.iter_items(after_id=after_id)
+        return self._it
+
+    def _close_items(self) -> None:
+        it, self._it = self._it, None
+        close = getattr(it, "close", None)
+        if close is not None:
+            close()
+
     def _items(self) -> Iterator[SessionItem]:
         if self._it is None:
-            self._it = self.reader.iter_items()
+            return self._open_items(0)
         return self._it
 
     def _next(self) -> SessionItem | None:
@@ -305,7 +403,7 @@ class Player:
                     m.tolerance_deg = tev.data.get("tolerance_deg")
             if ref is not None:
                 m.reference = ref[1]
-        self._it = self.reader.iter_items(after_id=start_id)
+        self._open_items(start_id)
         self._peek = None
         self.ended = False
         if self.grid:
@@ -379,6 +477,7 @@ class Player:
             self._running = False
 
     def close(self) -> None:
+        self._close_items()
         self.reader.close()
 
     def __enter__(self) -> Player:

@@ -314,3 +314,24 @@ def test_cli_live_record_then_headless_replay_prints_the_live_lines(tmp_path):
     assert not [r for r in rejudged if r["type"] == "alarm" and r["rule"] == "sidelobe_rise"]
     assert [r for r in rejudged if r["type"] == "metrics"] == \
         [json.loads(ln) for ln in live_lines if json.loads(ln)["type"] == "metrics"]
+
+
+def test_prefetched_and_plain_reading_agree_and_errors_arrive_in_order(tmp_path, live_session):
+    path = live_session[0]
+    assert replay_records(path, prefetch=False) == replay_records(path, prefetch=True)
+    # damage one batch in a copy: every batch before it is played, then one clear error
+    from stream.errors import InputFileError
+    bad = tmp_path / "bad.lws"
+    data = bytearray(path.read_bytes())
+    with SessionReader(path) as r:
+        victim = list(r.iter_batches())[300]
+    needle = victim.power_db.astype("<f8").tobytes()[:24]
+    i = bytes(data).find(needle)
+    assert i > 0
+    data[i + 5] ^= 0x10
+    bad.write_bytes(bytes(data))
+    mon = make_monitor()
+    with Player(bad, mon, speed=math.inf) as p:
+        with pytest.raises(InputFileError, match="checksum"):
+            p.run_fast()
+        assert p.batches_fed == 300
