@@ -246,6 +246,14 @@ class SessionWriter:
                             "check the directory is writable") from None
         for suffix in ("-wal", "-shm", "-journal"):  # the replaced file's, or left over
             _unlink_quietly(self.path + suffix)
+        try:  # make the new directory entry durable too
+            dfd = os.open(d, os.O_RDONLY)
+            try:
+                os.fsync(dfd)
+            finally:
+                os.close(dfd)
+        except OSError:
+            pass
         return tmp
 
     # -- rows --------------------------------------------------------------------------
