@@ -330,7 +330,7 @@ async def test_replay_keys_call_the_player() -> None:
         assert "replay" in plain and "0.5×" in plain and "01:40/06:40" in plain
         assert "╸" in plain  # the position bar
         footer = screen_text(app).splitlines()[-1]
-        for word in ("play", "speed", "±10s", "±1min", "event"):
+        for word in ("play", "speed", "±10s", "±1m", "event", "help", "quit"):
             assert word in footer
         # recording is not offered in replay
         assert "rec" not in footer.split()

@@ -12,8 +12,10 @@ Data flow (never a redraw per message):
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import inspect
 import os
+import signal
 import time
 from collections.abc import Callable
 from dataclasses import replace
@@ -51,7 +53,7 @@ MIN_TOLERANCE_DEG = 0.5
 
 _G_SPEED = Binding.Group("speed", compact=True)
 _G_SEEK = Binding.Group("±10s", compact=True)
-_G_JUMP = Binding.Group("±1min", compact=True)
+_G_JUMP = Binding.Group("±1m", compact=True)
 _G_EVENT = Binding.Group("event", compact=True)
 
 #: Actions that only make sense when replaying a session file.
@@ -83,6 +85,8 @@ class LobewatchApp(App[int]):
         Binding("v", "swap_view", "swap"),
         Binding("a", "acknowledge", "ack"),
         Binding("w", "toggle_recording", "rec"),
+        Binding("question_mark", "help", "help", key_display="?"),
+        Binding("q", "quit_app", "quit"),
         Binding("space", "replay_pause", "play", key_display="␣"),
         Binding("minus", "slower", "slower", key_display="-", group=_G_SPEED),
         Binding("plus", "faster", "faster", key_display="+", group=_G_SPEED),
@@ -90,13 +94,11 @@ class LobewatchApp(App[int]):
         Binding("left", "seek(-10)", "-10 s", key_display="←", group=_G_SEEK),
         Binding("right", "seek(10)", "+10 s", key_display="→", group=_G_SEEK),
         Binding("pageup", "seek(-60)", "-1 min", key_display="PgUp", group=_G_JUMP),
-        Binding("pagedown", "seek(60)", "+1 min", key_display="PgDn", group=_G_JUMP),
+        Binding("pagedown", "seek(60)", "+1 min", key_display="Dn", group=_G_JUMP),
         Binding("left_square_bracket", "prev_event", "previous event", key_display="[",
                 group=_G_EVENT),
         Binding("right_square_bracket", "next_event", "next event", key_display="]",
                 group=_G_EVENT),
-        Binding("question_mark", "help", "help", key_display="?"),
-        Binding("q", "quit_app", "quit"),
     ]
 
     #: Key and meaning of every binding, for the help page.
@@ -181,7 +183,26 @@ class LobewatchApp(App[int]):
                             exit_on_error=False)
         if self.refresh_hz > 0:
             self.set_interval(1.0 / self.refresh_hz, self.refresh_view, name="refresh")
+        self._signals: list[int] = []
+        if self.is_headless:
+            pass  # tests: leave the process's signal handling alone
+        else:
+            # Terminal closed or ``kill``: leave like ``q`` does, so the driver, the
+            # recorder and (in demo) the publisher shut down cleanly.
+            loop = asyncio.get_running_loop()
+            for name in ("SIGHUP", "SIGTERM"):
+                sig = getattr(signal, name, None)
+                if sig is None:
+                    continue
+                with contextlib.suppress(NotImplementedError, RuntimeError, ValueError):
+                    loop.add_signal_handler(sig, self._leave_on_signal)
+                    self._signals.append(sig)
         self.refresh_view()
+
+    def _leave_on_signal(self) -> None:
+        self._stop.set()
+        self._close_recorder()
+        self.exit(0)
 
     async def _drive(self) -> None:
         """Run the driver until the stop event; report a failure on screen."""
@@ -446,6 +467,10 @@ class LobewatchApp(App[int]):
 
     def on_unmount(self) -> None:
         self._stop.set()
+        with contextlib.suppress(Exception):
+            loop = asyncio.get_running_loop()
+            for sig in getattr(self, "_signals", []):
+                loop.remove_signal_handler(sig)
         sinks = getattr(self.monitor, "event_sinks", None)
         if sinks is not None and self._on_event in sinks:
             sinks.remove(self._on_event)
