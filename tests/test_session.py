@@ -240,3 +240,13 @@ def test_seek_into_one_hour_session_reads_few_rows(tmp_path):
         assert r.rows_read <= 30  # of 72,060 rows
         ev = r.neighbour_event(mid, forward=True)
         assert ev is not None and ev.t > mid and r.rows_read <= 31
+    # the player's seek: 15 s of warm-up replayed, read through the indexes
+    from replay.player import Player
+    from stream.estimator import RollingPattern
+    from stream.monitor import Monitor
+    mon = Monitor(RollingPattern())
+    with Player(p, mon, speed=float("inf"), warmup_s=15.0, prefetch=False) as player:
+        player.seek_to(mid)
+        assert mon.last_tick is not None and mid - 0.1 < mon.last_tick.t <= mid
+        assert mon.estimator.samples == 151 * 8  # 15 s of 8-sample batches at 10/s, both ends
+        assert player.reader.rows_read < 400  # of 72,060
