@@ -109,6 +109,7 @@ class HelpScreen(ModalScreen[None]):
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="help-body"):
+            yield Static(reflow(SAFETY) + "\n", id="help-safety")
             yield Static(reflow(READINGS), id="help-readings")
             if self._keys:
                 keys = Text()
@@ -117,7 +118,6 @@ class HelpScreen(ModalScreen[None]):
                     keys.append(f"  {k:>12}", style="bold")
                     keys.append(f"  {d}\n")
                 yield Static(keys, id="help-keys")
-            yield Static(reflow(SAFETY), id="help-safety")
             yield Static("[i]Esc closes this page.  Demo data is invented.[/i]")
 
     def action_dismiss_help(self) -> None:
