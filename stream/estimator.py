@@ -40,6 +40,9 @@ _AVERAGING: tuple[str, ...] = ("ema", "sweeps")
 #: Up to this many bins per batch the per-bin bookkeeping runs on Python scalars.
 _FEW_BINS: int = 4
 
+#: A sweep whose extent reaches this is a full turn (a turning mount), degrees.
+_FULL_TURN_DEG: float = 360.0 - 1e-9
+
 
 def _is_real(v: object) -> bool:
     return isinstance(v, numbers.Real) and not isinstance(v, bool)
@@ -102,9 +105,10 @@ class EstimatorConfig:
 class SweepRecord:
     """One completed sweep, measured on its own samples.
 
-    ``t`` is the receive time at which the sweep was seen to end; ``angle_min_deg`` /
-    ``angle_max_deg`` are the lowest and highest sample angles in it (wrapped to
-    [-180, 180), so a full turn of a mount spans about -180 .. 180).
+    ``t`` is the receive time at which the sweep was seen to end.  The sweep covers
+    from ``angle_min_deg`` counter-clockwise (increasing angle) to ``angle_max_deg``,
+    both wrapped to [-180, 180): when it crosses the +-180 seam, ``angle_max_deg`` is
+    the smaller number (150 .. -150 is a 60 deg sector facing 180).
     """
 
     t: float
@@ -166,12 +170,17 @@ class RollingPattern:
       ``sweeps_k`` complete sweeps and the sweep in progress (sum and count per bin in a
       ring of ``sweeps_k`` rows).
 
-    Sweep detection (per sample, causal, so batch boundaries never change it): the
-    wrapped angle is followed with hysteresis ``h = max(bin/2, MIN_REVERSAL_DEG)``.
-    While moving up, a sample more than ``h`` below the highest angle reached ends the
-    sweep (moving down: symmetric).  That one rule catches a back-and-forth reversal, the
-    fly-back of a sawtooth (-60 -> +60, jump to -60) and the wrap of a turning mount
-    (179.9 -> -180), because a wrap is a large step against the direction of travel.
+    Sweep detection (per sample, causal, so batch boundaries never change it) runs on the
+    continuous angle ``u = a + 360 k``, where ``k`` counts crossings of the +-180 seam (a
+    step of more than 180 deg between two samples is taken as the short way round), so a
+    sector sweep facing the seam is one sweep, not two.  A sweep ends at
+
+    * a reversal: moving up, a sample more than ``h = max(bin/2, MIN_REVERSAL_DEG)``
+      below the highest angle reached (moving down: symmetric).  This also catches the
+      fly-back of a sawtooth (-60 -> +60, jump to -60);
+    * a full turn: the sweep's extent reaching 360 deg (a turning mount; also the
+      fly-back of a sawtooth wider than 180 deg, which is shorter the other way round).
+
     The sample that reveals the end starts the next sweep.  A sweep filling fewer than
     ``MIN_SWEEP_BINS`` bins is not counted; its samples join the next sweep.  Each
     counted sweep is measured on its own binned samples with ``stream.pattern.measure``.
@@ -204,7 +213,7 @@ class RollingPattern:
         self._u_cnt = np.zeros(nb)                    # ema: sample count of the last update
         self._sw_sum = np.zeros(nb)                   # sweep in progress: sum per bin
         self._sw_cnt = np.zeros(nb, dtype=np.int64)   # sweep in progress: count per bin
-        self._sw_lo = math.inf                        # sweep in progress: angle range
+        self._sw_lo = math.inf                        # sweep in progress: range of u
         self._sw_hi = -math.inf
         k = self.config.sweeps_k if not self._ema else 0
         self._ring_sum = np.zeros((k, nb))            # sweeps: last K complete sweeps
@@ -215,6 +224,13 @@ class RollingPattern:
         self._now_max = -math.inf                     # latest receive time seen
         self._dir = 0                                 # +1 up, -1 down, 0 not yet known
         self._ext = math.nan                          # furthest angle in the direction
+        self._e_lo = math.inf                         # extent of the sweep (detection)
+        self._e_hi = -math.inf
+        self._k = 0                                   # seam crossings (u = a + 360 k)
+        self._turning = False                         # a full turn seen: a turning mount
+        self._cut = -180.0                            # turning: where turns are cut
+        self._next_cut = math.inf                     # turning: u of the next cut
+        self._last_a = math.nan                       # last wrapped angle seen
         self._history: deque[SweepRecord] = deque(maxlen=self.config.history)
         self._sweep_count = 0
         self._samples = 0
@@ -297,27 +313,28 @@ class RollingPattern:
             c = c[:nb]
         win = slice(i0, i0 + s.shape[0])
 
-        bounds = self._boundaries(a, lo, hi)
-        if span <= _FEW_BINS and not bounds:
-            # A batch inside a few bins (the usual case at high sample rates): plain
-            # Python floats per touched bin beat a dozen small-array numpy calls.
-            self._sw_lo = min(self._sw_lo, lo)
-            self._sw_hi = max(self._sw_hi, hi)
-            self._update_few(i0, s.tolist(), c.tolist(), now)
-            return
-        if not bounds:
+        u, u_lo, u_hi = self._unwrap(a, lo, hi)
+        b = self._next_boundary(u, 0, u_lo, u_hi)
+        if b < 0:
+            self._sw_lo = min(self._sw_lo, u_lo)
+            self._sw_hi = max(self._sw_hi, u_hi)
+            if span <= _FEW_BINS:
+                # A batch inside a few bins (the usual case at high sample rates): plain
+                # Python floats per touched bin beat a dozen small-array numpy calls.
+                self._update_few(i0, s.tolist(), c.tolist(), now)
+                return
             self._sw_sum[win] += s
             self._sw_cnt[win] += c
-            self._sw_lo = min(self._sw_lo, lo)
-            self._sw_hi = max(self._sw_hi, hi)
         else:
+            n = a.shape[0]
             k = 0
-            for b in (*bounds, a.shape[0]):
+            while b >= 0:
                 if b > k:
-                    self._add_to_sweep(a[k:b], idx[k:b], lin[k:b], win, seam)
-                if b < a.shape[0]:
-                    self._end_sweep(now)
+                    self._add_to_sweep(u[k:b], idx[k:b], lin[k:b], win, seam)
+                self._end_sweep(now)
                 k = b
+                b = self._next_boundary(u, b + 1, math.nan, math.nan) if b + 1 < n else -1
+            self._add_to_sweep(u[k:], idx[k:], lin[k:], win, seam)
 
         tl = np.flatnonzero(c)
         tb = tl + i0 if i0 else tl
@@ -380,11 +397,12 @@ class RollingPattern:
         self._u_sum[tb] = ss
         self._u_cnt[tb] = cs
 
-    def _add_to_sweep(self, a: np.ndarray, idx: np.ndarray, lin: np.ndarray, win: slice,
+    def _add_to_sweep(self, u: np.ndarray, idx: np.ndarray, lin: np.ndarray, win: slice,
                       seam: bool) -> None:
-        """Add samples (window-relative bin indices) to the sweep in progress."""
-        self._sw_lo = min(self._sw_lo, float(a.min()))
-        self._sw_hi = max(self._sw_hi, float(a.max()))
+        """Add samples (continuous angles, window-relative bin indices) to the sweep in
+        progress."""
+        self._sw_lo = min(self._sw_lo, float(u.min()))
+        self._sw_hi = max(self._sw_hi, float(u.max()))
         span = win.stop - win.start + (1 if seam else 0)
         s = np.bincount(idx, weights=lin, minlength=span)
         c = np.bincount(idx, minlength=span)
@@ -397,71 +415,136 @@ class RollingPattern:
         self._sw_sum[win] += s
         self._sw_cnt[win] += c
 
-    def _boundaries(self, a: np.ndarray, lo: float, hi: float) -> list[int]:
-        """Indices in ``a`` (wrapped angles, range ``lo..hi``) where a new sweep starts;
-        updates the direction state.  One vectorised scan per boundary found."""
+    def _unwrap(self, a: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, float, float]:
+        """The batch on the continuous angle axis ``u = a + 360 k``, where ``k`` counts the
+        seam crossings so far (a step of more than 180 deg between consecutive samples is
+        a crossing of +-180, not a real move).  Returns ``u`` and its range."""
+        last = self._last_a
+        self._last_a = float(a[-1])
+        if hi - lo <= 180.0 and not abs(float(a[0]) - last) > 180.0:
+            k = self._k
+            if k == 0:
+                return a, lo, hi
+            off = 360.0 * k
+            return a + off, lo + off, hi + off
+        d = np.empty(a.shape[0])
+        d[0] = float(a[0]) - last if last == last else 0.0
+        np.subtract(a[1:], a[:-1], out=d[1:])
+        cross = (d < -180.0).astype(np.int64)
+        cross -= d > 180.0
+        kk = np.cumsum(cross)
+        kk += self._k
+        self._k = int(kk[-1])
+        u = a + 360.0 * kk
+        return u, float(u.min()), float(u.max())
+
+    def _next_boundary(self, u: np.ndarray, k: int, lo: float, hi: float) -> int:
+        """Index of the first sample at or after ``k`` in ``u`` (continuous angles) that
+        starts a new sweep, or -1; consumes the samples up to it into the direction
+        state.  ``lo``/``hi`` are the range of ``u[k:]`` when known (else NaN).
+
+        One vectorised scan per event, shortcuts for the usual event-free batch."""
         h = self._h
-        n = a.shape[0]
-        out: list[int] = []
+        n = u.shape[0]
         d = self._dir
         ext = self._ext
-        # Whole batch within h of the furthest point: no reversal possible (common when
-        # the rate is high and a batch spans a fraction of a degree).
-        if d > 0 and lo >= max(ext, hi) - h:
-            self._ext = max(ext, hi)
-            return out
-        if d < 0 and hi <= min(ext, lo) + h:
-            self._ext = min(ext, lo)
-            return out
-        k = 0
+        e_lo, e_hi = self._e_lo, self._e_hi
+        if lo != lo:
+            lo = float(u[k:].min())
+            hi = float(u[k:].max())
+        if d != 0:
+            if self._turning:
+                quiet = hi < self._next_cut if d > 0 else lo > self._next_cut
+            else:
+                quiet = max(e_hi, hi) - min(e_lo, lo) < _FULL_TURN_DEG
+            if quiet:
+                seg = u[k:]
+                # Whole rest within h of the furthest point (common at high rates: a
+                # batch spans a fraction of a degree), or monotone in the direction of
+                # travel from within h of it: no retreat anywhere.
+                if d > 0 and (lo >= max(ext, hi) - h or (
+                        seg[0] >= ext - h and not np.less(seg[1:], seg[:-1]).any())):
+                    self._ext = max(ext, hi)
+                    self._e_lo, self._e_hi = min(e_lo, lo), max(e_hi, hi)
+                    return -1
+                if d < 0 and (hi <= min(ext, lo) + h or (
+                        seg[0] <= ext + h and not np.greater(seg[1:], seg[:-1]).any())):
+                    self._ext = min(ext, lo)
+                    self._e_lo, self._e_hi = min(e_lo, lo), max(e_hi, hi)
+                    return -1
         while k < n:
+            seg = u[k:]
             if d == 0:
                 if math.isnan(ext):
-                    ext = float(a[k])
+                    ext = e_lo = e_hi = float(seg[0])
                     k += 1
                     continue
-                dev = a[k:] - ext
+                dev = seg - ext
                 far = np.abs(dev) > h
-                j = int(np.argmax(far))
+                j = int(far.argmax())
                 if not far[j]:
+                    e_lo = min(e_lo, float(seg.min()))
+                    e_hi = max(e_hi, float(seg.max()))
                     break
                 d = 1 if dev[j] > 0 else -1
-                ext = float(a[k + j])
+                ext = float(seg[j])
+                e_lo = min(e_lo, float(seg[:j + 1].min()))
+                e_hi = max(e_hi, float(seg[:j + 1].max()))
                 k += j + 1
                 continue
-            seg = a[k:]
-            # Monotone in the direction of travel and starting within h of the furthest
-            # point: no retreat anywhere (cheaper than the running extreme below).
-            if d > 0 and seg[0] >= ext - h and not np.less(seg[1:], seg[:-1]).any():
-                ext = max(ext, float(seg[-1]))
-                break
-            if d < 0 and seg[0] <= ext + h and not np.greater(seg[1:], seg[:-1]).any():
-                ext = min(ext, float(seg[-1]))
-                break
-            # run = furthest angle so far (including the carried one); back = retreat.
+            # run = furthest point so far (with the carried one); back = the retreat.
             if d > 0:
                 run = np.maximum.accumulate(seg)
                 if ext > run[0]:
                     np.maximum(run, ext, out=run)
-                ext_end = float(run[-1])
-                back = np.subtract(run, seg, out=run)
+                back = run - seg
             else:
                 run = np.minimum.accumulate(seg)
                 if ext < run[0]:
                     np.minimum(run, ext, out=run)
-                ext_end = float(run[-1])
-                back = np.subtract(seg, run, out=run)
-            if back.max() <= h:  # the usual case: no end of sweep in this batch
-                ext = ext_end
+                back = seg - run
+            hit = back > h
+            if self._turning:
+                hit |= (seg >= self._next_cut) if d > 0 else (seg <= self._next_cut)
+            else:
+                # Extent of the sweep at each sample: furthest point minus the far end.
+                if d > 0:
+                    far_end = np.minimum.accumulate(seg)
+                    np.minimum(far_end, e_lo, out=far_end)
+                    extent = run - far_end
+                else:
+                    far_end = np.maximum.accumulate(seg)
+                    np.maximum(far_end, e_hi, out=far_end)
+                    extent = far_end - run
+                hit |= extent >= _FULL_TURN_DEG
+            j = int(hit.argmax())
+            if not hit[j]:
+                ext = float(run[-1])
+                e_lo = min(e_lo, float(seg.min()))
+                e_hi = max(e_hi, float(seg.max()))
                 break
-            j = int((back > h).argmax())
-            out.append(k + j)
-            d = -d
-            ext = float(a[k + j])
+            x = float(seg[j])
+            if back[j] > h:  # reversal: a new sweep the other way
+                self._dir, self._ext, self._e_lo, self._e_hi = -d, x, x, x
+                self._turning = False
+                return k + j
+            if self._turning:  # the cut angle: a new turn the same way
+                self._ext, self._e_lo, self._e_hi = x, x, x
+                self._next_cut += 360.0 * d
+                return k + j
+            # The sweep has gone all the way round: a turning mount.  From here on, turns
+            # are cut at the cut angle (away from the beam), starting with the next one.
+            self._turning = True
+            self._next_cut = _beyond(x, self._cut, d)
+            ext = float(run[j])
+            e_lo = min(e_lo, float(seg[:j + 1].min()))
+            e_hi = max(e_hi, float(seg[:j + 1].max()))
             k += j + 1
         self._dir = d
         self._ext = ext
-        return out
+        self._e_lo = e_lo
+        self._e_hi = e_hi
+        return -1
 
     def _end_sweep(self, now: float) -> None:
         """Close the sweep in progress: measure and record it, or, if it filled too few
@@ -476,9 +559,15 @@ class RollingPattern:
         metrics = measure(angle, power_db)
         self._history.append(SweepRecord(
             t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
-            peak_power_db=metrics.peak_power_db, angle_min_deg=self._sw_lo,
-            angle_max_deg=self._sw_hi))
+            peak_power_db=metrics.peak_power_db, angle_min_deg=_wrap1(self._sw_lo),
+            angle_max_deg=_wrap1(self._sw_hi)))
         self._sweep_count += 1
+        peak = metrics.peak_angle_deg
+        if self._turning and peak is not None:
+            cut = 0.0 if abs(peak) > 90.0 else -180.0  # the half circle behind the beam
+            if cut != self._cut:
+                self._cut = cut
+                self._next_cut = _beyond(self._ext, cut, self._dir)
         if not self._ema:
             pos = self._ring_pos
             self._ring_sum[pos] = self._sw_sum
@@ -521,3 +610,15 @@ def _clean(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         a = a[ok]
         p = p[ok]
     return a, p
+
+
+def _wrap1(angle_deg: float) -> float:
+    """One angle into [-180, 180), unchanged when already there."""
+    return angle_deg if -180.0 <= angle_deg < 180.0 else float(wrap_angle_deg(angle_deg))
+
+
+def _beyond(u: float, cut_deg: float, direction: int) -> float:
+    """The first angle ``cut_deg + 360 m`` strictly beyond ``u`` in ``direction``."""
+    if direction > 0:
+        return cut_deg + 360.0 * (math.floor((u - cut_deg) / 360.0) + 1)
+    return cut_deg + 360.0 * (math.ceil((u - cut_deg) / 360.0) - 1)

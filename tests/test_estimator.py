@@ -273,22 +273,82 @@ def test_sawtooth_sweeps_are_counted(size: int) -> None:
     assert all(r.angle_min_deg == -60.0 and r.angle_max_deg == 60.0 for r in est.sweeps)
 
 
+def _cut_crossings(travel: np.ndarray, start: float, sign: float, cut: float) -> int:
+    """Independent count of the sweeps a turning mount should give: after the first full
+    turn, one sweep ends at each crossing of the cut angle (``cut + 360 m``)."""
+    u = start + sign * travel
+    m = np.floor((u - cut) / 360.0) if sign > 0 else np.ceil((u - cut) / 360.0)
+    crossed = np.flatnonzero(np.diff(m) != 0) + 1
+    return int(np.count_nonzero(travel[crossed] > 360.0))
+
+
+@pytest.mark.parametrize("start", [0.0, 123.0])
 @pytest.mark.parametrize("sign", [1.0, -1.0])
 @pytest.mark.parametrize("size", [3, 1000, 4096])
-def test_turning_mount_sweeps_are_counted_at_each_wrap(sign: float, size: int) -> None:
-    """A mount turning 3.6 times from 0 deg passes the +-180 seam 4 times (after 180, 540,
-    900 and 1260 deg of travel; angles given unwrapped, the estimator wraps them)."""
-    ang = _turning(3.6, sign=sign)
+def test_turning_mount_counts_one_sweep_per_turn_cut_behind_the_beam(
+        start: float, sign: float, size: int) -> None:
+    """A mount turning 3.6 times (angles given unwrapped, beyond 360: the estimator
+    wraps them).  Once a full turn shows it is a mount, turns are cut at +-180, behind
+    the beam at 0: every sweep after the first covers the whole circle with the beam in
+    the middle."""
+    travel = np.arange(0.0, 360.0 * 3.6, 0.25)
+    ang = start + sign * travel
     est = RollingPattern()
     _feed(est, ang, _pattern_db(ang), size=size)
-    assert est.sweep_count == 4
+    assert est.sweep_count == _cut_crossings(travel, start, sign, 180.0) >= 2
     first, *full = est.sweeps
-    assert first.angle_max_deg - first.angle_min_deg == pytest.approx(180.0, abs=0.5)
+    assert first.peak_angle_deg == pytest.approx(0.0, abs=0.2)
     for rec in full:
-        assert rec.angle_min_deg == pytest.approx(-180.0, abs=0.5)
-        assert rec.angle_max_deg == pytest.approx(180.0, abs=0.5)
+        assert (rec.angle_max_deg - rec.angle_min_deg) % 360.0 == pytest.approx(359.75)
+        seam_end = rec.angle_min_deg if sign > 0 else rec.angle_max_deg
+        assert seam_end == -180.0
         assert rec.peak_angle_deg == pytest.approx(0.0, abs=0.2)
-        assert rec.hpbw_deg == pytest.approx(est.sweeps[1].hpbw_deg)
+        assert rec.hpbw_deg == pytest.approx(full[0].hpbw_deg)
+
+
+@pytest.mark.parametrize("sign", [1.0, -1.0])
+def test_turning_mount_moves_the_cut_away_from_a_beam_at_180(sign: float) -> None:
+    """Beam at 180 deg: after the first turn is measured, turns are cut at 0 instead."""
+    travel = np.arange(0.0, 360.0 * 5.2, 0.5)
+    ang = 30.0 + sign * travel
+    est = RollingPattern()
+    _feed(est, ang, _pattern_db(ang - 180.0))
+    assert est.sweep_count >= 4
+    for rec in est.sweeps[-3:]:  # (0.5-deg samples in 1-deg bins: up to 0.25 deg off)
+        assert abs(rec.peak_angle_deg) == pytest.approx(180.0, abs=0.3)
+        seam_end = rec.angle_min_deg if sign > 0 else rec.angle_max_deg
+        assert seam_end == 0.0
+        assert (rec.angle_max_deg - rec.angle_min_deg) % 360.0 == pytest.approx(359.5)
+
+
+@pytest.mark.parametrize("wrapped", [False, True])
+@pytest.mark.parametrize("size", [5, 1000])
+def test_sector_sweep_across_the_seam_is_not_split(wrapped: bool, size: int) -> None:
+    """Back and forth over 150..210 deg (a beam facing +-180): the seam is crossed on
+    every leg but only the reversals end sweeps."""
+    ang, _ = _legs([150.0, 210.0, 150.0, 210.0, 150.0, 210.0], 0.25)
+    if wrapped:
+        ang = (ang + 180.0) % 360.0 - 180.0
+    est = RollingPattern()
+    _feed(est, ang, _pattern_db(ang - 180.0), size=size)
+    assert est.sweep_count == 4
+    for rec in est.sweeps:  # (ends within the reversal hysteresis of the turning points)
+        assert rec.peak_angle_deg % 360.0 == pytest.approx(180.0, abs=0.2)
+        assert rec.angle_min_deg == pytest.approx(150.0, abs=1.0)
+        assert rec.angle_max_deg == pytest.approx(-150.0, abs=1.0)
+
+
+def test_wide_sawtooth_fly_back_ends_each_sweep() -> None:
+    """-150 -> +150 then back to -150: the fly-back is shorter the other way round the
+    circle, so it reads as a turn; the first fly-back completes the first full turn (a
+    mount, then), every later one crosses the cut at 180 and ends a sweep."""
+    ang = np.tile(np.arange(-150.0, 150.0 + 1e-9, 0.5), 5)
+    est = RollingPattern()
+    _feed(est, ang, _pattern_db(ang))
+    assert est.sweep_count == 3
+    assert all(r.angle_min_deg == -150.0 and r.angle_max_deg == 150.0 for r in est.sweeps)
+    # 0.5-deg samples in 1-deg bins: the binned pattern sits up to 0.25 deg off.
+    assert all(r.peak_angle_deg == pytest.approx(0.0, abs=0.3) for r in est.sweeps)
 
 
 def test_jitter_below_the_hysteresis_does_not_split_sweeps() -> None:
@@ -310,7 +370,7 @@ def test_too_short_sweeps_are_ignored_and_their_samples_kept() -> None:
     assert est.sweeps[0].angle_min_deg == -60.0 and est.sweeps[0].angle_max_deg == 3.0
 
 
-_SCENARIOS = ("back_and_forth", "sawtooth", "turning", "random_walk")
+_SCENARIOS = ("back_and_forth", "sawtooth", "turning", "rear_sector", "random_walk")
 
 
 def _scenario(name: str, seed: int) -> tuple[np.ndarray, np.ndarray]:
@@ -319,6 +379,9 @@ def _scenario(name: str, seed: int) -> tuple[np.ndarray, np.ndarray]:
         ang = _back_and_forth(5, step=rng.uniform(0.2, 1.5))
     elif name == "sawtooth":
         ang = _sawtooth(4, step=rng.uniform(0.3, 1.5))
+    elif name == "rear_sector":
+        ang, _ = _legs([150.0, 210.0, 150.0, 210.0, 150.0], rng.uniform(0.2, 1.5))
+        ang = (ang + 180.0) % 360.0 - 180.0
     elif name == "turning":
         ang = _turning(2.6, step=rng.uniform(0.5, 2.0), start=rng.uniform(-180, 180),
                        sign=rng.choice([-1.0, 1.0]))
