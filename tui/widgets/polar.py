@@ -184,12 +184,12 @@ class PolarPlot(CanvasWidget):
             if ref_peak is None:
                 ref_peak = float(np.nanmax(ref.power_db))
             ra, rp = break_gaps(ref.angle_deg, ref.power_db - ref_peak, not geo.half)
-            x, y = geo.to_dots(ra, radial_fraction(rp, self.scale, floor_db))
+            x, y = geo.to_dots(ra, self._trace_radius(rp, floor_db))
             canvas.line(canvas.layer("polar--reference"), x, y, dash=(3, 3))
         if tick.target_deg is not None:
             self._draw_target(canvas, geo, tick.target_deg, tick.tolerance_deg)
         la, lp = break_gaps(tick.angle_deg, tick.power_db - peak_db, not geo.half)
-        x, y = geo.to_dots(la, radial_fraction(lp, self.scale, floor_db))
+        x, y = geo.to_dots(la, self._trace_radius(lp, floor_db))
         canvas.line(canvas.layer("polar--pattern"), x, y)
         peak = m.peak_angle_deg
         pl = canvas.layer("polar--peak")
@@ -197,6 +197,14 @@ class PolarPlot(CanvasWidget):
         canvas.line(pl, px, py)
         col, row = geo.cell_of(peak, 1.0)
         canvas.text(col, row, PEAK_GLYPH, "polar--peak")
+
+    def _trace_radius(self, rel_db: np.ndarray, floor_db: float) -> np.ndarray:
+        """Radius fractions of a trace; on the dB scale, points under the floor break
+        the line instead of all piling into the centre (noise there is unreadable)."""
+        r = radial_fraction(rel_db, self.scale, floor_db)
+        if self.scale == "db":
+            r = np.where(np.asarray(rel_db) < floor_db, np.nan, r)
+        return r
 
     def _draw_grid(self, canvas: BrailleCanvas, geo: PolarGeometry, floor_db: float) -> None:
         key = (geo, self.scale, floor_db)
