@@ -4,37 +4,49 @@ Input is angle in degrees and power in dB (dBm or uncalibrated dB), in any order
 irregular spacing, duplicates, NaN gaps, and either a sector sweep or a full turn of a
 rotating mount.  Output is a :class:`stream.beam.BeamMetrics`; a value the data cannot
 determine is ``None`` and ``reasons`` says why.  Pure numpy, vectorised: no Python loop
-per sample, so a 3,600-point pattern is measured well inside a millisecond.
+per sample (a 3,600-point pattern takes a fraction of a millisecond, see
+bench/bench_metrics.py).
 
-Definitions (IEEE Std 145 terms; the procedures are common practice):
+Preparation: NaN samples are dropped; angles equal to within ``DUPLICATE_TOL_DEG``
+(modulo 360) are merged by averaging their *linear* power, 10 log10(mean 10^(p/10)).
+
+Definitions (terms of IEEE Std 145, definitions of terms for antennas; the procedures
+are common practice):
 
 * peak: the highest sample, refined by the parabola (in dB) through it and its two
-  neighbours (sub-step peak direction and level);
+  neighbours (sub-step direction and level).  A highest sample on the edge of a sector
+  sweep gives ``None`` everywhere: the beam may point outside the sweep;
 * half-power beamwidth: distance between the two points where the pattern crosses
   exactly ``HALF_POWER_DB`` (10 log10 0.5) below the refined peak, each found by linear
-  interpolation in dB between the samples that bracket it.  On noisy data a side can
-  cross the level several times; the point used is the mean of the innermost and the
+  interpolation in dB between the samples that bracket it.  A side that crosses the
+  level several times (noise, a shoulder) uses the mean of the innermost and the
   outermost crossing inside the main lobe (identical on clean data);
-* ``bw10_deg``: the same at -10 dB;
-* first-null beamwidth: distance between the first minima either side of the main lobe.
-  A minimum counts once the pattern has risen again by ``_rise_db`` above it (a
-  hysteresis that ignores noise wiggles; see :func:`_hysteresis_db`).  The minimum is
-  refined by a V fit in linear amplitude (a simple null is a straight-line zero of
-  the field amplitude);
-* side lobe level: highest side lobe peak outside the first nulls, parabola-refined,
-  relative to the peak (negative dB).  In a sector sweep a side maximum sitting on the
-  edge of the span is not a lobe peak (the lobe may continue outside), so it gives
-  ``None``;
-* front-to-back ratio: peak minus the highest level within +/-``BACK_WINDOW_DEG`` of the
-  direction opposite the peak (a window around 180 deg is common practice for
-  rotating-mount measurements), only when a sample lies within
+* ``bw10_deg``: the same at -10 dB, inside the first nulls;
+* first-null beamwidth: distance between the first minima either side of the main
+  lobe.  A minimum counts once the pattern has risen again by a hysteresis above it
+  (:func:`_hysteresis_db`: 1 dB on clean data, more on noisy data).  The minimum is
+  refined by a V fit in linear amplitude (a simple null is a straight-line zero of the
+  field amplitude);
+* side lobe level: highest lobe outside the first nulls, parabola-refined, relative to
+  the peak (negative dB).  In a sector sweep a side maximum on the edge of the span is
+  not a lobe peak (the lobe may continue outside): ``None``;
+* front-to-back ratio: peak minus the highest level within +/-``BACK_WINDOW_DEG`` of
+  the direction opposite the peak (a window around the back direction is common
+  practice for rotating-mount measurements), only when a sample lies within
   ``BACK_COVER_DEG`` of that direction.
+
+Noisy data: when the main lobe above half power holds at least 9 samples and a
+least-squares quartic through them leaves more than ``_NOISE_DB`` rms (clean lobes,
+steered and tapered ones included, leave < 0.01 dB), the peak is taken from that
+quartic, the lobes are walked on a moving average over about a sixth of the
+beamwidth, and the side lobe top is a least-squares parabola.  Accuracy reached is
+stated in tests/test_pattern.py.
 
 Angles are reported in the input's own frame for a sector sweep that does not cross
 the +/-180 (or 0/360) seam; a full turn, or a sweep across the seam, is reported in
 [-180, 180).  A full turn is recognised when no gap around the circle exceeds
-``_CIRCLE_GAP_FACTOR`` times the mean of the other steps; it then has no edges, and a beam at
-+/-180 deg is one lobe.
+``_CIRCLE_GAP_FACTOR`` times the mean of the other steps; it then has no edges, and a
+beam at +/-180 deg is one lobe.
 """
 
 from __future__ import annotations
@@ -66,8 +78,8 @@ _RISE_NOISE_FACTOR: float = 5.0
 #: _RISE_COARSE_DB (a side lobe sampled every 5 deg may show only a few dB of rise).
 _COARSE_LOBE_SAMPLES: int = 12
 _RISE_COARSE_DB: float = 2.0
-#: Residual (dB rms) of a parabola through the main lobe's top above which the data
-#: are treated as noisy (clean patterns leave far less, see tests).
+#: Residual (dB rms) of a quartic through the main lobe above half power beyond which
+#: the data are treated as noisy (clean lobes leave < 0.01 dB).
 _NOISE_DB: float = 0.02
 
 

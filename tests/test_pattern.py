@@ -213,6 +213,21 @@ def test_noise_accuracy(step: float, sigma: float, ref4: BeamMetrics) -> None:
         assert abs(m.sll_db - ref4.sll_db) <= t_sl, seed
 
 
+def test_irregular_spacing(ref4: BeamMetrics) -> None:
+    """900 angles drawn uniformly at random over +/-90 deg (mean step 0.2 deg, gaps up
+    to ~1.5 deg), 20 seeds, clean N = 4: HPBW within 0.05 deg (reached 0.024), peak
+    within 0.001 deg, SLL within 0.001 dB, FNBW within 0.8 deg (reached 0.54: the V fit
+    sees the null through the random gaps)."""
+    model = ArrayModel(4)
+    for seed in range(20):
+        g = np.sort(np.random.default_rng(seed).uniform(-90.0, 90.0, 900))
+        m = measure(g, model.power_db(g))
+        assert abs(m.hpbw_deg - ref4.hpbw_deg) <= 0.05
+        assert abs(m.peak_angle_deg) <= 0.001
+        assert abs(m.sll_db - ref4.sll_db) <= 0.001
+        assert abs(m.fnbw_deg - ref4.fnbw_deg) <= 0.8
+
+
 def test_shuffled_order_gives_identical_metrics() -> None:
     """Sample order does not matter: shuffled input gives the same metrics to 1e-9."""
     g = np.arange(-90.0, 90.0, 0.5)

@@ -78,7 +78,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                    help="element spacing in wavelengths (default 0.5)")
     m.add_argument("--element-exp", type=float, metavar="Q",
                    help="element power pattern cos^Q(theta), theta from broadside in "
-                        "degrees; 0 = isotropic (default 0)")
+                        "degrees; 0 = isotropic (default 0).  For a full-turn sweep give "
+                        "Q > 0: isotropic elements radiate as much to the back")
     m.add_argument("--steer-deg", type=float, metavar="A",
                    help="steering angle of the main beam, degrees from broadside "
                         "(default 0)")
