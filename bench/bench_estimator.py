@@ -9,7 +9,11 @@ receiver noise):
   for sweep ends), at 1 deg and 0.1 deg bins, both averaging modes;
 * ``snapshot()`` time with 3,600 bins (0.1 deg, the full circle filled);
 * a naive pure-Python estimator doing the same job one sample at a time (dict of bins,
-  the same recurrence and sweep rule), on the same data, for the speed-up ratio.
+  the same EMA recurrence, the reversal rule for sweeps), on the same data, for the
+  speed-up ratio (as a ratio of CPU rates measured in the same run).
+
+Rates are given per wall-clock second (what the machine delivered, including whatever
+else ran) and per CPU second of the benchmark thread (what the estimator costs).
 
 Run from the repository root::
 
