@@ -77,8 +77,8 @@ def _fmt(v: float | None, decimals: int = _DECIMALS, signed: bool = False) -> st
 def format_table(entries: list[ReportEntry]) -> str:
     """A readable table: one row per metric, one column group per file.
 
-    With a model, each file gets three columns: measured, model and
-    measured - model.  Undetermined values read ``n/a [k]``; note k under the table
+    With a model, each file gets three columns (measured, model, measured - model)
+    under the file's name.  Undetermined values read ``n/a [k]``; note k under the table
     says why.
     """
     if not entries:
@@ -100,7 +100,8 @@ def format_table(entries: list[ReportEntry]) -> str:
         return f"{MISSING} [{note_index[key]}]"
 
     # Columns: list of (title, cells for head rows + metric rows).
-    columns: list[tuple[str, list[str]]] = []
+    # Columns: (file title, column title, cells); the file title heads its group.
+    columns: list[tuple[str, str, list[str]]] = []
     for e in entries:
         m = e.metrics.to_dict()
         meas = [str(e.samples), f"{_fmt(e.angle_min_deg, 1)} .. {_fmt(e.angle_max_deg, 1)}"]
@@ -108,7 +109,7 @@ def format_table(entries: list[ReportEntry]) -> str:
             v = m[k]
             meas.append(_fmt(v) if v is not None
                         else note(e.source, e.metrics.reasons.get(k, "not determined")))
-        columns.append((e.source if not with_model else f"{e.source} measured", meas))
+        columns.append((e.source, "measured" if with_model else "", meas))
         if with_model:
             x = e.expected.to_dict() if e.expected is not None else dict.fromkeys(METRIC_KEYS)
             exp = ["", ""]
@@ -121,18 +122,38 @@ def format_table(entries: list[ReportEntry]) -> str:
                 exp.append(_fmt(x[k]))
                 d = difference(k, m[k], x[k])
                 dif.append(_fmt(d, signed=True) if d is not None else "")
-            columns.append(("model", exp))
-            columns.append(("meas - model", dif))
+            columns.append(("", "model", exp))
+            columns.append(("", "meas - model", dif))
 
     row_labels = head_rows + labels
     lw = max(len(s) for s in row_labels)
-    widths = [max(len(title), *(len(c) for c in cells)) for title, cells in columns]
-    out = [" " * lw + "".join("  " + t.rjust(w) for (t, _), w in zip(columns, widths,
-                                                                   strict=True))]
+    widths = [max(len(t2), *(len(c) for c in cells)) for _, t2, cells in columns]
+    # A file title wider than its group's first column widens that column.
+    for i, (t1, _, _) in enumerate(columns):
+        if t1:
+            group = [i] + [k for k in range(i + 1, len(columns)) if not columns[k][0]]
+            span = sum(widths[k] for k in group) + 2 * (len(group) - 1)
+            if len(t1) > span:
+                widths[i] += len(t1) - span
+
+    def line(label: str, cells: list[str]) -> str:
+        return label.ljust(lw) + "".join("  " + c.rjust(w)
+                                         for c, w in zip(cells, widths, strict=True))
+
+    out = []
+    if with_model:
+        head = ""
+        for i, (t1, _, _) in enumerate(columns):
+            if t1:
+                group = [i] + [k for k in range(i + 1, len(columns)) if not columns[k][0]]
+                span = sum(widths[k] for k in group) + 2 * (len(group) - 1)
+                head += "  " + t1.ljust(span)
+        out.append((" " * lw + head).rstrip())
+        out.append(line("", [t2 for _, t2, _ in columns]))
+    else:
+        out.append(line("", [t1 for t1, _, _ in columns]))
     for r, label in enumerate(row_labels):
-        out.append(label.ljust(lw) + "".join("  " + cells[r].rjust(w)
-                                             for (_, cells), w in zip(columns, widths,
-                                                                      strict=True)))
+        out.append(line(label, [cells[r] for _, _, cells in columns]))
     if with_model:
         models = {_model_text(e.model) for e in entries if e.model is not None}
         for text in sorted(models):
