@@ -185,3 +185,14 @@ def test_installed_console_script(tmp_path: Path) -> None:
     assert res.returncode == 1
     assert res.stderr.strip() == f"lobewatch report: {bad}:2: 'x' in column power_dbm is " \
                                  "not a number; fix the value (a dot as decimal point, no units)"
+
+
+def test_differences_wrap_angles_and_skip_absolute_power() -> None:
+    """measured - expected wraps directions to [-180, 180) (179 vs -179 deg is -2 deg
+    apart, not 358) and is not formed for the absolute peak power."""
+    from replay.report import difference
+
+    assert difference("peak_angle_deg", 179.0, -179.0) == pytest.approx(-2.0)
+    assert difference("hpbw_deg", 20.0, 25.0) == pytest.approx(-5.0)
+    assert difference("peak_power_db", -30.0, 0.0) is None
+    assert difference("sll_db", None, -13.0) is None
