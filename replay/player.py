@@ -162,6 +162,7 @@ class Player:
         self.interval_s = float(interval_s)
         self.warmup_s = default_warmup_s(monitor) if warmup_s is None else float(warmup_s)
         self.hold_at_end = hold_at_end
+        self.speed = self._check_speed(speed)
         self.reader = SessionReader(self.path)
         span = self.reader.time_span()
         if span is None:
@@ -175,7 +176,6 @@ class Player:
             first = self.reader.first_sample_t()
             if first is not None and first < self.t_start:
                 self.t_start = first
-        self.speed = self._check_speed(speed)
         self.paused = False
         self.ended = False
         self.samples_fed = 0
