@@ -38,8 +38,8 @@ are common practice):
 Noisy data: when the main lobe above half power holds at least 9 samples and a
 least-squares quartic through them leaves more than ``_NOISE_DB`` rms (clean lobes,
 steered and tapered ones included, leave < 0.01 dB), the peak is taken from that
-quartic, the lobes are walked on a moving average over about a sixth of the
-beamwidth, and the side lobe top is a least-squares parabola.  Accuracy reached is
+quartic, the lobes are walked on a Savitzky-Golay (quadratic) smoothing over about a
+third of the beamwidth, and the side lobe top is a least-squares parabola.  Accuracy reached is
 stated in tests/test_pattern.py.
 
 Angles are reported in the input's own frame for a sector sweep that does not cross
@@ -134,7 +134,7 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         ic = i
 
     v_r, pk_db = _vertex(r, pr, ic, circular)
-    ps = pr  # the series the lobes are walked on (a moving average when noisy)
+    ps = pr  # the series the lobes are walked on (smoothed when noisy)
     # Samples out to the outermost half-power crossings (side lobes stay below -3 dB):
     # few means a coarse sweep, whose side lobes may rise only a few dB between
     # sampled nulls.
@@ -150,8 +150,8 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
     # Noisy data: a 3-point parabola would follow the noise.  When the main lobe above
     # half power holds enough samples and a least-squares quartic through them (which
     # fits a clean lobe, steered and asymmetric ones included, to a few mdB) leaves
-    # residuals above _NOISE_DB, take the peak from that quartic, walk a moving
-    # average, and fit the side lobe top by least squares.
+    # residuals above _NOISE_DB, take the peak from that quartic, walk a smoothed
+    # series, and fit the side lobe top by least squares.
     if right.hp is not None and left.hp is not None:
         half = 0.5 * (right.hp + left.hp)
         ctr = 0.5 * (right.hp - left.hp)
@@ -164,7 +164,7 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
                 sigma, cnt = top[2], top[3]
                 v_r, pk_db = top[0], top[1]
                 k = 2 * (cnt // 12) + 1
-                ps = _moving_average(pr, k, circular) if k >= 3 else pr
+                ps = _smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
                 j = int(np.abs(r - v_r).argmin())
                 rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
                 right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
@@ -511,21 +511,6 @@ def _lsq_vertex(r: np.ndarray, p: np.ndarray, center: float, half: float,
     return center + uv * half, a * uv * uv + b * uv + c, rms, cnt
 
 
-def _moving_average(p: np.ndarray, k: int, circular: bool) -> np.ndarray:
-    """Centred moving average over k (odd) samples; shrinks at sector edges."""
-    h = k // 2
-    n = p.size
-    if circular and n > k:
-        ext = np.concatenate((p[-h:], p, p[:h]))
-        c = np.concatenate(([0.0], np.cumsum(ext)))
-        return (c[k:] - c[:-k]) / k
-    c = np.concatenate(([0.0], np.cumsum(p)))
-    idx = np.arange(n)
-    lo = np.maximum(idx - h, 0)
-    hi = np.minimum(idx + h + 1, n)
-    return (c[hi] - c[lo]) / (hi - lo)
-
-
 def _median(x: np.ndarray) -> float:
     """Median (upper one for even sizes), without np.median's overhead."""
     return float(np.sort(x)[x.size // 2])  # sort: partition is slow on equal values
@@ -573,3 +558,19 @@ def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
             ub = float(ug[g] + 0.5 * (y0 - y2) / den * (ug[1] - ug[0]))
             yb = (((c4 * ub + c3) * ub + c2) * ub + c1) * ub + c0
     return center + ub * half, yb, rms, cnt
+
+
+def _smooth(p: np.ndarray, k: int, circular: bool) -> np.ndarray:
+    """Savitzky-Golay smoothing, quadratic over k (odd) samples: unlike a moving
+    average it does not flatten a curved lobe, so the level crossings keep their place
+    (A. Savitzky, M. J. E. Golay, Anal. Chem. 36(8), 1964; closed-form quadratic
+    weights (3(3m^2+3m-1) - 15 i^2) / ((2m-1)(2m+1)(2m+3)), i = -m..m).  Sector edges
+    are padded with the end values, a full turn wraps."""
+    m = k // 2
+    i = np.arange(-m, m + 1, dtype=np.float64)
+    c = (3.0 * (3 * m * m + 3 * m - 1) - 15.0 * i * i) / ((2 * m - 1) * (2 * m + 1) * (2 * m + 3))
+    if circular and p.size > k:
+        ext = np.concatenate((p[-m:], p, p[:m]))
+    else:
+        ext = np.concatenate((np.full(m, p[0]), p, np.full(m, p[-1])))
+    return np.convolve(ext, c, mode="valid")

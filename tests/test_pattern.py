@@ -185,7 +185,7 @@ def test_clean_sampling_accuracy(n: int, step: float, ref4: BeamMetrics,
 
 #: (step, noise dB): (hpbw deg, peak deg, sll dB) worst case over 20 fixed seeds.
 NOISE_TOL = {
-    (0.1, 0.3): (0.8, 0.5, 0.15),
+    (0.1, 0.3): (0.65, 0.5, 0.15),
     (0.1, 1.0): (2.5, 2.0, 0.45),
     (1.0, 0.3): (1.6, 1.4, 0.45),
     (5.0, 0.3): (3.5, 5.0, 1.2),
@@ -195,11 +195,11 @@ NOISE_TOL = {
 @pytest.mark.parametrize("step,sigma", sorted(NOISE_TOL))
 def test_noise_accuracy(step: float, sigma: float, ref4: BeamMetrics) -> None:
     """N = 4 with a -40 dB floor plus Gaussian noise in dB, 20 fixed seeds, random grid
-    offsets.  95th-percentile errors measured over 100 trials: 0.1 deg & 0.3 dB: HPBW
-    0.43 deg, peak 0.36 deg, SLL 0.10 dB; 0.1 deg & 1 dB: 1.4 deg, 1.3 deg, 0.33 dB;
-    1 deg & 0.3 dB: 1.1 deg, 1.3 deg, 0.29 dB; 5 deg & 0.3 dB: 2.9 deg, 3.5 deg,
-    0.73 dB.  Worst of the 20 seeds: 0.61/0.35/0.12, 2.0/1.4/0.33, 1.25/1.07/0.35,
-    2.7/4.2/0.90; asserted within NOISE_TOL (about 1.3 times those)."""
+    offsets.  95th-percentile errors measured over 100 trials (HPBW deg, peak deg, SLL
+    dB): 0.1 deg & 0.3 dB: 0.34, 0.35, 0.10; 0.1 deg & 1 dB: 1.33, 1.45, 0.36; 1 deg &
+    0.3 dB: 1.06, 1.34, 0.26; 5 deg & 0.3 dB: 2.9, 3.5, 0.73.  Worst of the 20 seeds:
+    0.48/0.36/0.10, 1.93/1.53/0.34, 1.10/0.90/0.35, 2.7/4.2/0.90; asserted within
+    NOISE_TOL (about 1.3 times those)."""
     t_hp, t_pk, t_sl = NOISE_TOL[(step, sigma)]
     model = ArrayModel(4)
     for seed in range(20):
