@@ -178,8 +178,12 @@ class RollingPattern:
     * a reversal: moving up, a sample more than ``h = max(bin/2, MIN_REVERSAL_DEG)``
       below the highest angle reached (moving down: symmetric).  This also catches the
       fly-back of a sawtooth (-60 -> +60, jump to -60);
-    * a full turn: the sweep's extent reaching 360 deg (a turning mount; also the
-      fly-back of a sawtooth wider than 180 deg, which is shorter the other way round).
+    * a cut, for a turning mount: once a sweep's extent reaches 360 deg the source is
+      taken to be turning, and that sweep and every later one end where the angle
+      crosses the cut angle -- +-180, or 0 when the last turn's peak faced backwards
+      (|peak| > 90) -- so the main lobe is not split between two sweeps measured at
+      different times.  A reversal ends this mode.  (The fly-back of a sawtooth wider
+      than 180 deg is shorter the other way round the circle and reads as turning.)
 
     The sample that reveals the end starts the next sweep.  A sweep filling fewer than
     ``MIN_SWEEP_BINS`` bins is not counted; its samples join the next sweep.  Each
