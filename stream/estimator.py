@@ -275,8 +275,10 @@ class RollingPattern:
     # -- data in ----------------------------------------------------------------------
     def update(self, batch: SampleBatch, now: float) -> None:
         """Fold in one batch whose samples were all received at ``now`` (seconds)."""
-        a = batch.angle_deg
-        p = batch.power_db
+        # float64 throughout: the bin window below relies on scalar and array index
+        # arithmetic agreeing exactly (a no-op for the usual float64 arrays).
+        a = np.asarray(batch.angle_deg, dtype=np.float64)
+        p = np.asarray(batch.power_db, dtype=np.float64)
         if a.shape[0] == 0:
             return
         lo = float(a.min())

@@ -532,3 +532,20 @@ def test_angles_in_the_0_to_360_convention_land_in_wrapped_bins() -> None:
     snap = est.snapshot(1.0)
     assert snap.angle_deg.tolist() == [-180.0, -90.0, 0.0, 10.0]
     np.testing.assert_allclose(snap.power_db, [-3.0, -2.0, -1.0, -4.0], atol=1e-12)
+
+
+def test_float32_input_gives_the_float64_result() -> None:
+    """Binary wire batches may carry float32 arrays (decoded without a copy)."""
+    ang = _back_and_forth(3, step=0.37)
+    pw = _pattern_db(ang)
+    a32, p32 = ang.astype(np.float32), pw.astype(np.float32)
+    ref, est = RollingPattern(), RollingPattern()
+    for i in range(0, ang.size, 100):
+        ref.update(SampleBatch.from_arrays(a32[i:i + 100].astype(np.float64),
+                                           p32[i:i + 100].astype(np.float64)), 1.0)
+        est.update(SampleBatch(t=np.zeros(len(a32[i:i + 100])), angle_deg=a32[i:i + 100],
+                               power_db=p32[i:i + 100]), 1.0)
+    assert est.sweep_count == ref.sweep_count == 2
+    s1, s2 = est.snapshot(1.0), ref.snapshot(1.0)
+    np.testing.assert_array_equal(s1.angle_deg, s2.angle_deg)
+    np.testing.assert_allclose(s1.power_db, s2.power_db, atol=1e-12)
