@@ -478,6 +478,20 @@ def _lobes(r: np.ndarray, q: np.ndarray, j: int, pk_db: float, rise: float,
     return right, left, k, (not circular and (k == 0 or k == m - 1))
 
 
+def _window(r: np.ndarray, p: np.ndarray, center: float, half: float,
+            circular: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Offsets from ``center`` and powers of the samples within ``half`` of it (r is
+    sorted: a slice, unless a full turn's window crosses the +/-180 seam)."""
+    lo, hi = center - half, center + half
+    if not circular or (lo >= r[0] and hi <= r[-1]):
+        i0 = int(np.searchsorted(r, lo, side="left"))
+        i1 = int(np.searchsorted(r, hi, side="right"))
+        return r[i0:i1] - center, p[i0:i1]
+    d = (r - center + 180.0) % 360.0 - 180.0
+    sel = np.abs(d) <= half
+    return d[sel], p[sel]
+
+
 def _lsq_vertex(r: np.ndarray, p: np.ndarray, center: float, half: float,
                 circular: bool) -> tuple[float, float, float, int] | None:
     """Least-squares parabola (dB) through the samples within ``half`` of ``center``.
@@ -485,15 +499,11 @@ def _lsq_vertex(r: np.ndarray, p: np.ndarray, center: float, half: float,
     Returns ``(vertex offset, vertex level, rms residual dB, samples used)``, or
     ``None`` with fewer than 7 samples or a non-concave fit.
     """
-    d = r - center
-    if circular:
-        d = (d + 180.0) % 360.0 - 180.0
-    sel = np.abs(d) <= half
-    cnt = int(np.count_nonzero(sel))
+    d, y = _window(r, p, center, half, circular)
+    cnt = d.size
     if cnt < 7:
         return None
-    u = d[sel] / half
-    y = p[sel]
+    u = d / half
     u2 = u * u
     # Normal equations of y = a u^2 + b u + c (u scaled to [-1, 1]: well conditioned).
     s1, s2, s3, s4 = u.sum(), u2.sum(), (u2 * u).sum(), (u2 * u2).sum()
@@ -527,15 +537,11 @@ def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
     ``center``: ``(offset, level, rms residual dB, samples used)``, or ``None`` with
     fewer than 9 samples.  With ``rms_only`` the maximum is not searched (offset and
     level are then NaN)."""
-    d = r - center
-    if circular:
-        d = (d + 180.0) % 360.0 - 180.0
-    sel = np.abs(d) <= half
-    cnt = int(np.count_nonzero(sel))
+    d, y = _window(r, p, center, half, circular)
+    cnt = d.size
     if cnt < 9:
         return None
-    u = d[sel] / half
-    y = p[sel]
+    u = d / half
     v = np.vander(u, 5)
     vt = v.T
     try:
