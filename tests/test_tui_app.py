@@ -87,6 +87,16 @@ def screen_text(app: LobewatchApp) -> str:
     return "\n".join(s.text for s in app.screen._compositor.render_strips())
 
 
+async def footer_text(pilot, app: LobewatchApp) -> str:
+    """The footer row once the footer has laid out its keys (it does so after mount)."""
+    for _ in range(100):
+        line = screen_text(app).splitlines()[-1]
+        if "quit" in line:
+            return line
+        await pilot.pause(0.02)
+    return screen_text(app).splitlines()[-1]
+
+
 async def settle(pilot, app: LobewatchApp) -> None:
     """Let the driver push its ticks and the refresh timer show the last one."""
     for _ in range(50):
@@ -196,7 +206,7 @@ async def test_footer_lists_every_live_key() -> None:
                  if b.binding.show and b.enabled and app.check_action(b.binding.action, ())}
         for key, desc in LIVE_KEYS.items():
             assert shown.get(key) == desc, key
-        footer = screen_text(app).splitlines()[-1]
+        footer = await footer_text(pilot, app)
         for desc in LIVE_KEYS.values():
             assert desc in footer
         # replay controls are not offered live
@@ -329,7 +339,7 @@ async def test_replay_keys_call_the_player() -> None:
         plain = app.query_one(StatusLine).plain
         assert "replay" in plain and "0.5×" in plain and "01:40/06:40" in plain
         assert "╸" in plain  # the position bar
-        footer = screen_text(app).splitlines()[-1]
+        footer = await footer_text(pilot, app)
         for word in ("play", "speed", "±10s", "±1m", "event", "help", "quit"):
             assert word in footer
         # recording is not offered in replay
@@ -433,4 +443,4 @@ async def test_screen_fits_and_resizes(size) -> None:
         assert "PEAK BEARING" in text and "HPBW" in text and "FNBW" in text
         assert "SLL" in text and "sweeps" in text and "rej" in text
         assert "◆" in text  # the peak marker
-        assert "quit" in lines[-1]
+        assert "quit" in await footer_text(pilot, app)
