@@ -25,12 +25,12 @@ import json
 import math
 import os
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
 from stream.batch import SampleBatch
 from stream.errors import InputFileError, UserError
+from stream.wire import decode_json_object
 
 CSV_EXTENSIONS: tuple[str, ...] = (".csv", ".tsv", ".txt")
 JSONL_EXTENSIONS: tuple[str, ...] = (".jsonl", ".ndjson")
@@ -234,7 +234,6 @@ def read_jsonl(path: str | os.PathLike[str]) -> SampleBatch:
     """Read JSON Lines of wire-format sample messages (single or batch)."""
     p = Path(path)
     name = str(p)
-    decode = _json_decoder()
     parts: list[SampleBatch] = []
     kinds: set[bool] = set()
     first_line: int | None = None
@@ -252,7 +251,7 @@ def read_jsonl(path: str | os.PathLike[str]) -> SampleBatch:
                                  "message; give lines with angle_deg and power_dbm "
                                  "(or power_db)", no)
         try:
-            batch = decode(obj, 0.0)
+            batch = decode_json_object(obj, 0.0)
         except ValueError as exc:
             raise InputFileError(name, f"rejected sample message ({exc}); see the wire "
                                  "format: angle_deg, power_dbm or power_db, optional t",
@@ -274,52 +273,3 @@ def read_jsonl(path: str | os.PathLike[str]) -> SampleBatch:
         raise InputFileError(name, "only one sample; a beam needs samples at several angles "
                              "across it", first_line)
     return SampleBatch.from_arrays(a, pw, t, calibrated=kinds.pop(), stream=name)
-
-
-def _json_decoder() -> Any:
-    """The wire format's JSON validator, or the small local one below if the wire
-    module is not available."""
-    try:
-        wire = importlib.import_module("stream.wire")
-    except ModuleNotFoundError as exc:
-        if exc.name != "stream.wire":
-            raise
-        return _decode_json_object
-    return getattr(wire, "decode_json_object", _decode_json_object)
-
-
-def _decode_json_object(obj: Any, rx_t: float) -> SampleBatch:
-    """Minimal wire-format JSON check (used only without ``stream.wire``)."""
-    if not isinstance(obj, dict):
-        raise ValueError("bad_json: message is not a JSON object")
-    if "angle_deg" not in obj:
-        raise ValueError("missing_field: angle_deg")
-    keys = [k for k in ("power_dbm", "power_db") if k in obj]
-    if len(keys) != 1:
-        raise ValueError("missing_field: power_dbm or power_db (exactly one)")
-    a = _as_array(obj["angle_deg"], "angle_deg")
-    pw = _as_array(obj[keys[0]], keys[0])
-    if a.shape != pw.shape:
-        raise ValueError(f"ragged: angle_deg has {a.size} values, {keys[0]} {pw.size}")
-    if "t" in obj and obj["t"] is not None:
-        t = _as_array(obj["t"], "t")
-        if t.shape != a.shape:
-            raise ValueError(f"ragged: t has {t.size} values, angle_deg {a.size}")
-    elif "t0" in obj:
-        t0 = float(_as_array(obj["t0"], "t0")[0])
-        dt = float(_as_array(obj.get("dt", 0.0), "dt")[0])
-        t = t0 + dt * np.arange(a.size)
-    else:
-        t = np.full(a.shape, float(rx_t))
-    if not (np.isfinite(a).all() and np.isfinite(pw).all() and np.isfinite(t).all()):
-        raise ValueError("non_finite: NaN or infinity in the message")
-    return SampleBatch.from_arrays(a, pw, t, rx_t=rx_t, calibrated=keys[0] == "power_dbm")
-
-
-def _as_array(v: Any, key: str) -> np.ndarray:
-    vals = v if isinstance(v, list) else [v]
-    if not vals or not all(isinstance(x, int | float) and not isinstance(x, bool)
-                           for x in vals):
-        raise ValueError(f"bad_type: {key} must be a number or an array of numbers")
-    return np.asarray(vals, dtype=np.float64)
-
