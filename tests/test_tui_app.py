@@ -98,8 +98,9 @@ async def footer_text(pilot, app: LobewatchApp) -> str:
 
 
 async def settle(pilot, app: LobewatchApp) -> None:
-    """Let the driver push its ticks and the refresh timer show the last one."""
-    for _ in range(50):
+    """Let the driver push its ticks and the refresh timer show the last one (bounded:
+    5 s, for a busy machine)."""
+    for _ in range(250):
         await pilot.pause(0.02)
         if app._shown is not None and app._shown is app.monitor.last_tick:
             return
