@@ -78,3 +78,62 @@ async def test_demo_shows_a_live_beam_within_two_seconds_then_stale_when_the_pub
     finally:
         pub.close()
     assert not os.path.exists(pub.tmpdir)
+
+
+def test_demo_command_in_a_terminal_shows_a_beam_and_quits_cleanly() -> None:
+    """``lobewatch demo`` as a user runs it: in a pseudo-terminal, the peak marker
+    appears, ``q`` quits with status 0, and the private socket directory is gone."""
+    import fcntl
+    import pty
+    import select
+    import shutil
+    import struct
+    import subprocess
+    import sys
+    import tempfile
+    import termios
+
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    tmp = tempfile.mkdtemp(prefix="lwd")
+    master, slave = pty.openpty()
+    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 30, 100, 0, 0))
+    env = dict(os.environ, TERM="xterm-256color", TMPDIR=tmp,
+               PYTHONPATH=root + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    env.pop("NO_COLOR", None)
+    t0 = time.monotonic()
+    proc = subprocess.Popen([sys.executable, "-m", "tui.cli", "demo"], cwd=tmp, env=env,
+                            stdin=slave, stdout=slave, stderr=slave, close_fds=True)
+    os.close(slave)
+    seen = b""
+    try:
+        while time.monotonic() - t0 < 20.0 and "◆".encode() not in seen:
+            ready, _, _ = select.select([master], [], [], 0.2)
+            if ready:
+                try:
+                    seen += os.read(master, 65536)
+                except OSError:
+                    break
+        assert "◆".encode() in seen, seen[-2000:]
+        assert b"PEAK BEARING" in seen
+        # from the command to a beam on screen, start-up (imports) included; generous
+        # against the 2 s goal so a busy test machine does not fail it
+        first_beam_s = time.monotonic() - t0
+        assert first_beam_s < 6.0
+        os.write(master, b"q")
+        t1 = time.monotonic()
+        while proc.poll() is None and time.monotonic() - t1 < 10.0:
+            ready, _, _ = select.select([master], [], [], 0.2)
+            if ready:
+                try:
+                    os.read(master, 65536)
+                except OSError:
+                    break
+        assert proc.wait(5.0) == 0
+        print(f"beam on screen after {first_beam_s:.2f} s")
+        assert not [n for n in os.listdir(tmp) if n.startswith("lobewatch-demo-")]
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(5.0)
+        os.close(master)
+        shutil.rmtree(tmp, ignore_errors=True)
