@@ -445,3 +445,18 @@ async def test_screen_fits_and_resizes(size) -> None:
         assert "SLL" in text and "sweeps" in text and "rej" in text
         assert "◆" in text  # the peak marker
         assert "quit" in await footer_text(pilot, app)
+
+
+async def test_no_color_keeps_every_mark_readable(monkeypatch) -> None:
+    """NO_COLOR (no-color.org): Textual renders in monochrome; the marks must still be
+    told apart by shape and words: peak diamond, target ring, legend patterns, states."""
+    monkeypatch.setenv("NO_COLOR", "1")
+    mon = make_monitor(model=sample_model())
+    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick(target_deg=-20.0)]), refresh_hz=20)
+    assert app.no_color
+    async with app.run_test(size=(120, 40)) as pilot:
+        await settle(pilot, app)
+        text = screen_text(app)
+        for mark in ("◆", "◎", "━ live", "╌ −3dB", "╍ ref", "┈ model", "┊ target",
+                     "● receiving", "OUT"):
+            assert mark in text, mark
