@@ -200,6 +200,15 @@ def test_trend_band_and_points() -> None:
     text = c.to_text()
     assert "-5 min" in text and "now" in text
     assert "trend--band" in c._style_names and "trend--points" in c._style_names
+    # a shorter sweep history (the estimator keeps a bounded number of sweeps) shrinks
+    # the window to what is covered, in 30 s steps: 80 s of sweeps -> 90 s shown
+    from dataclasses import replace
+    t = sample_tick()
+    short = replace(t, sweep_peak_t=t.sweep_peak_t[-41:], sweep_peaks_deg=t.sweep_peaks_deg[-41:])
+    tr.tick = short
+    c = BrailleCanvas(34, 6)
+    tr.draw(c)
+    assert tr.shown_window_s == 90.0 and "-90 s" in c.to_text()
 
 
 # -- helpers ------------------------------------------------------------------------------

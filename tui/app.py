@@ -188,7 +188,7 @@ class LobewatchApp(App[int]):
         self.w_alarms = self.query_one(AlarmList)
         self.w_body = self.query_one("#body")
         self.query_one("#trace").border_title = "power vs bearing"
-        self.query_one("#trend").border_title = "peak bearing · 5 min"
+        self.query_one("#trend").border_title = "peak bearing per sweep"
         self.query_one("#alarms").border_title = "alarms"
         self._stop = asyncio.Event()
         sinks = getattr(self.monitor, "event_sinks", None)

@@ -11,8 +11,10 @@ from stream.tick import Tick
 from tui.widgets.braille import BrailleCanvas, CanvasWidget
 from tui.widgets.trace import nice_step
 
-#: Default time window, seconds.
+#: Longest time window, seconds; shorter when the sweep history covers less (the
+#: estimator keeps a bounded number of sweeps), never under MIN_WINDOW_S.
 WINDOW_S = 300.0
+MIN_WINDOW_S = 60.0
 #: Smallest angle span shown, degrees (so noise is not blown up to full height).
 MIN_SPAN_DEG = 4.0
 
@@ -31,6 +33,7 @@ class TrendPlot(CanvasWidget):
                  id: str | None = None, classes: str | None = None) -> None:
         super().__init__(name=name, id=id, classes=classes)
         self.window_s = float(window_s)
+        self.shown_window_s = float(window_s)
         self.tick: Tick | None = None
 
     def show(self, tick: Tick | None) -> None:
@@ -47,16 +50,26 @@ class TrendPlot(CanvasWidget):
         py0, py1 = 0, 4 * plot_rows - 1
         if px1 - px0 < 4 or plot_rows < 1:
             return
-        if has_axis:
-            canvas.text(lab, h - 1, f"-{self.window_s / 60:.0f} min", "trend--label")
-            canvas.text(w - 1, h - 1, "now", "trend--label", align="right")
         if tick is None:
+            if has_axis:
+                canvas.text(w - 1, h - 1, "now", "trend--label", align="right")
             canvas.text((w + lab) // 2, plot_rows // 2, "no sweeps yet", "trend--empty",
                         align="center")
             return
         t_end = tick.t
-        t0 = t_end - self.window_s
-        ts = np.asarray(tick.sweep_peak_t, dtype=np.float64)
+        ts_all = np.asarray(tick.sweep_peak_t, dtype=np.float64)
+        window = self.window_s
+        if ts_all.size:
+            covered = t_end - float(np.nanmin(ts_all))
+            window = float(np.clip(np.ceil(covered / 30.0) * 30.0, MIN_WINDOW_S,
+                                   self.window_s))
+        self.shown_window_s = window
+        if has_axis:
+            span = f"-{window / 60:.0f} min" if window % 60 == 0 else f"-{window:.0f} s"
+            canvas.text(lab, h - 1, span, "trend--label")
+            canvas.text(w - 1, h - 1, "now", "trend--label", align="right")
+        t0 = t_end - window
+        ts = ts_all
         pk = np.asarray(tick.sweep_peaks_deg, dtype=np.float64)
         keep = (ts >= t0) & np.isfinite(pk)
         ts, pk = ts[keep], pk[keep]
@@ -77,7 +90,7 @@ class TrendPlot(CanvasWidget):
         lo, hi = lo - pad, hi + pad
 
         def xd(t: np.ndarray) -> np.ndarray:
-            return px0 + (np.asarray(t) - t0) / self.window_s * (px1 - px0)
+            return px0 + (np.asarray(t) - t0) / window * (px1 - px0)
 
         def yd(v: np.ndarray) -> np.ndarray:
             return py0 + (hi - np.asarray(v)) / (hi - lo) * (py1 - py0)
