@@ -1,23 +1,25 @@
 """ZeroMQ SUB source: receives wire-format messages and yields decoded batches.
 
-Draining strategy (measured, see ``bench/bench_ingest.py --drain``): the source awaits
-readiness once with ``zmq.asyncio`` (``await poll``) and then drains up to
-``drain_max`` messages with non-blocking receives on the plain socket underneath,
-decodes them in one go and yields, then gives the event loop a turn
-(``asyncio.sleep(0)``).  Measured on the project's 2-core machine with pyzmq 27.3 /
-libzmq 4.3.5, publisher in another process, 75-byte JSON singles (median of 3 runs, a
-10 ms timer task running alongside):
+Draining strategy (measured with ``python bench/bench_ingest.py --drain``): the source
+awaits readiness once with ``zmq.asyncio`` (``await poll``), then drains up to
+``drain_max`` messages (or ``drain_budget_s`` of work) with non-blocking receives on the
+plain socket underneath, decodes them in one go, yields, and gives the event loop a
+turn (``asyncio.sleep(0)``).  Measured on the project's 2-core machine, pyzmq 27.3 /
+libzmq 4.3.5, a publisher process flooding 75-byte JSON singles, a 10 ms timer task
+alongside, medians of 3 runs of 2 s (the machine was shared with other jobs, load
+average about 6, so the absolute rates are low; the comparison is what counts):
 
-==========================================  ============  ==========================
-consumer                                    messages/s    10 ms timer, worst delay
-==========================================  ============  ==========================
-``await recv()`` per message                ~ 55,000      starved (0 runs in 3 s)
-await poll + drain 2,000 on the same socket ~ 780,000     ~ 12 ms
-sync socket in a thread + loop hand-off     ~ 390,000     ~ 25 ms
-==========================================  ============  ==========================
+====================================  ===========  ===============  ==============
+consumer                              messages/s   timer runs/s     worst timer gap
+====================================  ===========  ===============  ==============
+``await recv_multipart()`` per msg    10,300       0 (starved)      --
+await poll + drain 2,000 (this one)   99,900       45.7             53 ms
+sync socket in a thread + hand-off    107,500      50.6             120 ms
+====================================  ===========  ===============  ==============
 
-The awaited-poll-then-drain design wins on both counts here (the thread fights the
-event loop for the GIL), so it is the one used.
+The thread is no faster here (it competes with the loop for the GIL) and delays the
+timer more, so the awaited-poll-then-drain design is used; a time budget per drain
+(5 ms by default) keeps the loop's latency bounded whatever the message size.
 
 Robustness:
 
