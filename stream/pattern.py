@@ -159,12 +159,15 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         if top is not None and top[2] > _NOISE_DB:
             # Two passes: the second sizes its windows from the first's beamwidth
             # (the raw walk's width is biased narrow by noise).
+            k_done = 0
             for _ in range(2):
                 top = _poly_peak(r, pr, ctr, half, circular) or top
                 sigma, cnt = top[2], top[3]
                 v_r, pk_db = top[0], top[1]
                 k = 2 * (cnt // 12) + 1
-                ps = _smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
+                if k != k_done:
+                    ps = _smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
+                    k_done = k
                 j = int(np.abs(r - v_r).argmin())
                 rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
                 right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
@@ -467,15 +470,17 @@ def _lobes(r: np.ndarray, q: np.ndarray, j: int, pk_db: float, rise: float,
     right = _walk(r[j:] - r[j], q[j:], lvl3, lvl10, rise)
     left = _walk(r[j] - r[j::-1], q[j::-1], lvl3, lvl10, rise)
     m = r.size
-    side = np.zeros(m, dtype=bool)
-    if right.null_idx is not None:
-        side[j + right.null_idx + 1:] = True
-    if left.null_idx is not None:
-        side[: j - left.null_idx] = True
-    if not side.any():
+    best: int | None = None
+    if right.null_idx is not None and j + right.null_idx + 1 < m:
+        lo = j + right.null_idx + 1
+        best = lo + int(q[lo:].argmax())
+    if left.null_idx is not None and j - left.null_idx > 0:
+        k = int(q[: j - left.null_idx].argmax())
+        if best is None or q[k] > q[best]:
+            best = k
+    if best is None:
         return right, left, None, False
-    k = int(np.argmax(np.where(side, q, -np.inf)))
-    return right, left, k, (not circular and (k == 0 or k == m - 1))
+    return right, left, best, (not circular and (best == 0 or best == m - 1))
 
 
 def _window(r: np.ndarray, p: np.ndarray, center: float, half: float,
