@@ -475,6 +475,13 @@ class SessionReader:
                 raise InputFileError(p, f"not a complete lobewatch session (no table "
                                      f"{missing[0]!r}); {_FIX_HINT}")
             rows = self._con.execute("SELECT key, value FROM meta").fetchall()
+        except sqlite3.OperationalError as exc:
+            if os.path.exists(p + "-wal") and ("unable to open" in str(exc)
+                                               or "readonly" in str(exc)):
+                raise InputFileError(p, f"cannot read the unsaved tail in {p}-wal ({exc}); "
+                                     "copy the .lws file together with its -wal file into "
+                                     "a writable folder and open the copy") from None
+            raise _damaged(p, str(exc)) from None
         except sqlite3.DatabaseError as exc:
             raise _damaged(p, str(exc)) from None
         meta: dict[str, Any] = {}
