@@ -155,13 +155,14 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
     if right.hp is not None and left.hp is not None:
         half = 0.5 * (right.hp + left.hp)
         ctr = 0.5 * (right.hp - left.hp)
-        top = _poly_peak(r, pr, ctr, half, circular, rms_only=True)
+        top = _poly_peak(r, pr, ctr, half, circular, peak_above_rms=_NOISE_DB)
         if top is not None and top[2] > _NOISE_DB:
             # Two passes: the second sizes its windows from the first's beamwidth
             # (the raw walk's width is biased narrow by noise).
             k_done = 0
-            for _ in range(2):
-                top = _poly_peak(r, pr, ctr, half, circular) or top
+            for npass in range(2):
+                if npass:
+                    top = _poly_peak(r, pr, ctr, half, circular) or top
                 sigma, cnt = top[2], top[3]
                 v_r, pk_db = top[0], top[1]
                 k = 2 * (cnt // 12) + 1
@@ -536,12 +537,12 @@ _PEAK_GRID = np.linspace(-1.0, 1.0, 401)
 
 
 def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
-               circular: bool, rms_only: bool = False
+               circular: bool, peak_above_rms: float = -1.0
                ) -> tuple[float, float, float, int] | None:
     """Maximum of a least-squares quartic (dB) through the samples within ``half`` of
     ``center``: ``(offset, level, rms residual dB, samples used)``, or ``None`` with
-    fewer than 9 samples.  With ``rms_only`` the maximum is not searched (offset and
-    level are then NaN)."""
+    fewer than 9 samples.  The maximum is searched only when the rms residual exceeds
+    ``peak_above_rms`` (offset and level are NaN otherwise)."""
     d, y = _window(r, p, center, half, circular)
     cnt = d.size
     if cnt < 9:
@@ -555,7 +556,7 @@ def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
         return None
     res = y - v @ coef
     rms = float(np.sqrt(res @ res / cnt))
-    if rms_only:
+    if rms <= peak_above_rms:
         return float("nan"), float("nan"), rms, cnt
     c4, c3, c2, c1, c0 = (float(c) for c in coef)
     ug = _PEAK_GRID
