@@ -222,7 +222,7 @@ async def test_flooded_source_does_not_starve_a_timer():
         await src.aclose()
     assert sum(len(b) for b in got) > 20_000
     assert ticks >= 40, f"timer ran {ticks} times in 1.5 s (150 when idle)"
-    assert max(gaps[1:]) < 0.25
+    assert max(gaps[1:]) < 0.5  # starved, it would be the whole 1.5 s
 
 
 async def test_slow_consumer_memory_bounded_and_losses_counted():
@@ -238,20 +238,22 @@ async def test_slow_consumer_memory_bounded_and_losses_counted():
             if await collect(src, lambda g: len(g) > 0, timeout=0.05):
                 break
         rss0 = proc.memory_info().rss
+        m0 = src.decoder.messages
         payload = np.zeros(2000)
         n_sent = 3000  # 3000 x 48 kB = 144 MB offered while nobody reads
         for i in range(1, n_sent + 1):
             pub.send(encode_binary_batch(payload, payload - 40.0, seq=i, epoch="e"))
         await asyncio.sleep(0.3)
         rss_peak = proc.memory_info().rss
-        got = await collect(src, lambda g: False, timeout=1.0)
-        received = sum(1 for b in got if len(b) == 2000)
-        assert received < n_sent
+        await collect(src, lambda g: False, timeout=1.0)
+        received = src.decoder.messages - m0
+        assert 0 < received < n_sent
         # the dropped tail shows as a gap once the next message arrives
         pub.send(encode_binary_batch(payload[:1], payload[:1], seq=n_sent + 1, epoch="e"))
-        got += await collect(src, lambda g: any(b.seq == n_sent + 1 for b in g), timeout=3)
+        got = await collect(src, lambda g: any(b.seq == n_sent + 1 for b in g), timeout=3)
         assert got[-1].seq == n_sent + 1
         st = src.stats(time.time())
+        assert src.decoder.messages - m0 == received + 1
         assert received + st.lost == n_sent
         assert st.lost > 0
         assert (rss_peak - rss0) < 100e6, f"RSS grew {(rss_peak - rss0) / 1e6:.0f} MB"
