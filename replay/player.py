@@ -294,9 +294,7 @@ class Player:
         elif ev.kind == "status":
             # Source status changes were emitted by the live driver through the monitor;
             # emitting the recorded ones again keeps the tick's event list identical.
-            emit = getattr(m, "emit", None) or getattr(m, "_emit", None)
-            if emit is not None:
-                emit(Event(ev.t, ev.kind, dict(ev.data)))
+            m.emit(Event(ev.t, ev.kind, dict(ev.data)))
         # "alarm" events are not replayed: the monitor's alarm engine judges again.
 
     # -- unpaced ----------------------------------------------------------------------------
@@ -370,22 +368,7 @@ class Player:
         return ev
 
     def _reset_pipeline(self) -> None:
-        m = self.monitor
-        restart = getattr(m, "restart", None)
-        if callable(restart):
-            restart()
-        else:
-            m.estimator.reset()
-            for name in ("_rate_hist", "_pending"):
-                obj = getattr(m, name, None)
-                if obj is not None:
-                    obj.clear()
-            m.last_tick = None
-            m.last_sample_t = None
-            m.reference = None
-            reset_alarms = getattr(getattr(m, "alarms", None), "reset", None)
-            if callable(reset_alarms):
-                reset_alarms()
+        self.monitor.restart()
 
     def _seek_steps(self, target: float) -> Iterator[None]:
         """Do a seek, yielding every few rows so an event loop stays responsive."""

@@ -62,11 +62,15 @@ class Monitor:
             sink(batch)
 
     # -- user actions (each becomes an event) ----------------------------------------
-    def _emit(self, event: Event) -> Event:
+    def emit(self, event: Event) -> Event:
+        """Send an event to the sinks now and attach it to the next tick (sources use this
+        for status changes; replay uses it to re-apply recorded ones)."""
         self._pending.append(event)
         for sink in self.event_sinks:
             sink(event)
         return event
+
+    _emit = emit  # old private name, still used by the live driver
 
     def capture_reference(self, t: float) -> Event | None:
         """Keep the current pattern as the installation reference."""
@@ -74,29 +78,42 @@ class Monitor:
         if tick is None or tick.metrics.peak_angle_deg is None:
             return None
         self.reference = Reference(t, tick.angle_deg.copy(), tick.power_db.copy(), tick.metrics)
-        return self._emit(Event(t, "reference", {
+        return self.emit(Event(t, "reference", {
             "peak_angle_deg": tick.metrics.peak_angle_deg,
             "peak_power_db": tick.metrics.peak_power_db, "hpbw_deg": tick.metrics.hpbw_deg}))
 
     def clear_reference(self, t: float) -> Event:
         self.reference = None
-        return self._emit(Event(t, "reference_cleared", {}))
+        return self.emit(Event(t, "reference_cleared", {}))
 
     def set_target(self, t: float, target_deg: float | None,
                    tolerance_deg: float | None = None) -> Event:
         self.target_deg = target_deg
         if tolerance_deg is not None:
             self.tolerance_deg = tolerance_deg
-        return self._emit(Event(t, "target", {"target_deg": target_deg,
+        return self.emit(Event(t, "target", {"target_deg": target_deg,
                                               "tolerance_deg": self.tolerance_deg}))
 
     def mark(self, t: float, text: str) -> Event:
-        return self._emit(Event(t, "marker", {"text": text}))
+        return self.emit(Event(t, "marker", {"text": text}))
 
     def reset(self, t: float) -> Event:
+        """The user's reset: forget the pattern (an event, so a replay does it too)."""
         self.estimator.reset()
         self._rate_hist.clear()
-        return self._emit(Event(t, "reset", {}))
+        return self.emit(Event(t, "reset", {}))
+
+    def restart(self) -> None:
+        """Back to the state of a new monitor, keeping settings and sinks and emitting
+        nothing: a replay seek starts from here."""
+        self.estimator.reset()
+        self._rate_hist.clear()
+        self._pending.clear()
+        self.last_tick = None
+        self.last_sample_t = None
+        self.reference = None
+        if self.alarms is not None:
+            self.alarms.reset()
 
     # -- readout -----------------------------------------------------------------------
     def tick(self, t: float, source: SourceStats | None = None) -> Tick:
