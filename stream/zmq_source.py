@@ -85,6 +85,7 @@ class ZmqSource:
                  max_message_bytes: int = DEFAULT_MAX_MESSAGE_BYTES,
                  stale_after_s: float = 3.0, clock: Callable[[], float] = time.time,
                  drain_max: int = DEFAULT_DRAIN_MAX, drain_budget_s: float = 0.005,
+                 batch_wait_s: float = 0.01,
                  heartbeat_ivl_ms: int = 1000,
                  heartbeat_timeout_ms: int = 3000, reconnect_ivl_ms: int = 200,
                  poll_ms: int = 200) -> None:
@@ -98,6 +99,8 @@ class ZmqSource:
         self.stale_after_s = float(stale_after_s)
         self.drain_max = int(drain_max)
         self.drain_budget_s = float(drain_budget_s)
+        self.batch_wait_s = float(batch_wait_s)
+        self._drain_full = False
         self.heartbeat_ivl_ms = int(heartbeat_ivl_ms)
         self.heartbeat_timeout_ms = int(heartbeat_timeout_ms)
         self.reconnect_ivl_ms = int(reconnect_ivl_ms)
@@ -212,6 +215,7 @@ class ZmqSource:
                     break
             else:
                 return msgs
+        self._drain_full = True  # until the queue is seen empty
         more = s.getsockopt
         rcvmore = zmq.RCVMORE
         noblock = zmq.NOBLOCK
@@ -221,6 +225,7 @@ class ZmqSource:
             try:
                 f = recv(noblock)
             except zmq.Again:
+                self._drain_full = False
                 break
             if not more(rcvmore):
                 msgs.append([f])
@@ -247,35 +252,47 @@ class ZmqSource:
         return msgs
 
     async def batches(self) -> AsyncIterator[list[SampleBatch]]:
-        """Yield the decoded batches of each drain (never an empty list)."""
+        """Yield the decoded batches of each drain (never an empty list).
+
+        After a drain that emptied the queue the source sleeps ``batch_wait_s`` before
+        looking again, so at moderate rates each wake-up takes many messages at once
+        (the fixed cost of a wake-up dominates otherwise); a drain that stopped on its
+        count or time budget only yields the loop a turn.
+        """
         while not self._closed:
             if self._need_reopen:
                 await asyncio.sleep(self.reconnect_ivl_ms / 1000.0)
                 if self._closed:
                     return
                 self._reopen()
-            asock = self._asock
-            if asock is None:
-                assert self._sock is not None
-                asock = self._asock = zmq.asyncio.Socket.from_socket(self._sock)
-            try:
-                ready = await asock.poll(self.poll_ms, zmq.POLLIN)
-            except zmq.ZMQError:
-                if self._closed:
-                    return
-                self._need_reopen = True
-                continue
-            self._poll_monitor()
-            if not ready or self._closed:
-                continue
             msgs = self._drain()
+            self._poll_monitor()
+            if not msgs:
+                asock = self._asock
+                if asock is None:
+                    assert self._sock is not None
+                    asock = self._asock = zmq.asyncio.Socket.from_socket(self._sock)
+                try:
+                    ready = await asock.poll(self.poll_ms, zmq.POLLIN)
+                except zmq.ZMQError:
+                    if self._closed:
+                        return
+                    self._need_reopen = True
+                    continue
+                if not ready or self._closed:
+                    self._poll_monitor()
+                    continue
+                msgs = self._drain()
             if msgs:
                 rx = self._clock()
                 out = self.decoder.decode_many(msgs, rx)
                 if out:
                     self._last_rx = rx
                     yield out
-            await asyncio.sleep(0)  # a full socket must not starve the loop
+            if self._drain_full or self.batch_wait_s <= 0:
+                await asyncio.sleep(0)  # a full socket must not starve the loop
+            else:
+                await asyncio.sleep(self.batch_wait_s)
 
     # -- status ------------------------------------------------------------------------
     def state(self, now: float) -> str:

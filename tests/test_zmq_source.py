@@ -221,7 +221,7 @@ async def test_flooded_source_does_not_starve_a_timer():
         proc.wait(5)
         await src.aclose()
     assert sum(len(b) for b in got) > 20_000
-    assert ticks >= 40, f"timer ran {ticks} times in 1.5 s (150 when idle)"
+    assert ticks >= 25, f"timer ran {ticks} times in 1.5 s (150 when idle, 0 if starved)"
     assert max(gaps[1:]) < 0.5  # starved, it would be the whole 1.5 s
 
 
