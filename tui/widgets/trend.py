@@ -35,10 +35,31 @@ class TrendPlot(CanvasWidget):
         self.window_s = float(window_s)
         self.shown_window_s = float(window_s)
         self.tick: Tick | None = None
+        self._last_key: tuple | None = None
 
     def show(self, tick: Tick | None) -> None:
+        """Redraw only when the picture can change: a new sweep, another target, or
+        time moved by one dot column (the trend scrolls slowly; at 10 Hz most ticks
+        would redraw the same dots)."""
         self.tick = tick
+        key = self._picture_key(tick)
+        if key is not None and key == self._last_key:
+            return
+        self._last_key = key
         self.redraw()
+
+    def _picture_key(self, tick: Tick | None) -> tuple | None:
+        if tick is None:
+            return None
+        n = len(tick.sweep_peak_t)
+        last_t = float(tick.sweep_peak_t[-1]) if n else None
+        column_s = self.shown_window_s / max(1, 2 * (self.size.width - 5))
+        return (n, last_t, tick.target_deg, tick.tolerance_deg, self.size,
+                int(tick.t // column_s) if column_s > 0 else tick.t)
+
+    def on_resize(self) -> None:
+        self._last_key = None
+        super().on_resize()
 
     def draw(self, canvas: BrailleCanvas) -> None:
         tick = self.tick
