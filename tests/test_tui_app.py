@@ -116,7 +116,7 @@ async def test_readout_shows_the_values_of_a_known_tick() -> None:
         await settle(pilot, app)
         v = app.query_one(Readout).values()
         m = tick.metrics
-        assert v["rd-digits"] == f"{m.peak_angle_deg:+.1f}"
+        assert v["rd-digits"] == f"{m.peak_angle_deg:+.1f}".rjust(6)
         assert v["rd-v-hpbw"] == f"{m.hpbw_deg:.1f}°"
         assert v["rd-v-bw10"] == f"{m.bw10_deg:.1f}°"
         assert v["rd-v-fnbw"] == f"{m.fnbw_deg:.1f}°"
@@ -186,7 +186,7 @@ async def test_readout_shows_what_the_estimator_computed_for_a_simulated_beam() 
         assert abs(tick.metrics.hpbw_deg - 12.80) < 0.5
         v = app.query_one(Readout).values()
         assert v["rd-v-hpbw"] == f"{tick.metrics.hpbw_deg:.1f}°"
-        assert v["rd-digits"] == f"{tick.metrics.peak_angle_deg:+.1f}"
+        assert v["rd-digits"].strip() == f"{tick.metrics.peak_angle_deg:+.1f}"
         assert abs(tick.metrics.peak_angle_deg) < 0.3
         assert v["rd-v-exp"] == f"{tick.expected_hpbw_deg:.1f}°"
 

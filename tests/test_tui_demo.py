@@ -62,7 +62,7 @@ async def test_demo_shows_a_live_beam_within_two_seconds_then_stale_when_the_pub
             assert shown is not None, "no beam on screen within 2 s"
             # the steady scenario's beam points at 0 deg (invented scenario)
             assert abs(shown.metrics.peak_angle_deg) < 3.0
-            assert app.query_one(Readout).values()["rd-digits"] != "--"
+            assert app.query_one(Readout).values()["rd-digits"].strip() != "--"
             assert "receiving" in app.query_one(StatusLine).plain
             # kill the publisher: the screen must say the stream is stale
             pub.stop.set()

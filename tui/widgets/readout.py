@@ -22,6 +22,8 @@ from textual.widgets import Digits, Static
 from stream.tick import Tick
 
 DASH = "—"
+#: Characters of the big bearing figure ("+123.4"), padded so its width never changes.
+BIG_CHARS = 6
 
 
 @dataclass(frozen=True, slots=True)
@@ -238,7 +240,10 @@ class Readout(Widget):
         m = tick.metrics
         unit = " dBm" if tick.calibrated else " dB"
         peak = m.peak_angle_deg
-        self._set("rd-digits", fmt(peak, "", 1, signed=True) if peak is not None else "--")
+        # fixed width (sign, three digits, one decimal): a bearing that gains or loses a
+        # digit must not make the whole screen lay out again
+        big = fmt(peak, "", 1, signed=True) if peak is not None else "--"
+        self._set("rd-digits", big.rjust(BIG_CHARS))
         spread = tick.peak_angle_spread_deg
         self._set("rd-spread", f"±{spread:.2f}° over sweeps" if spread is not None
                   else "± — over sweeps")
