@@ -72,9 +72,8 @@ class LiveDriver:
     def _status(self, t: float, stats: SourceStats) -> None:
         name = status_change(self.state, stats.state)
         if name is not None:
-            # Monitor has no public status hook yet; _emit queues it for the next tick.
-            self.monitor._emit(Event(t, "status", {"state": name, "source_state": stats.state,
-                                                   "previous": self.state}))
+            self.monitor.emit(Event(t, "status", {"state": name, "source_state": stats.state,
+                                                  "previous": self.state}))
         self.state = stats.state
 
     def tick_once(self) -> None:

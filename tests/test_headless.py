@@ -93,7 +93,7 @@ class ScriptDriver:
                 self.monitor.ingest(b)
             t += 0.5
             if k in self.events:
-                self.monitor._emit(self.events[k])
+                self.monitor.emit(self.events[k])
             self.monitor.tick(t, SourceStats(state="receiving", messages=k))
             await asyncio.sleep(0)
 
