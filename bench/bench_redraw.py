@@ -6,8 +6,8 @@
    screen + serialise the frame to terminal escape codes (a full repaint, the worst
    case; a normal refresh repaints only what changed).
    "App refresh cycle" = what the running app spends per refresh: the timer pushes
-   a new tick, Textual repaints what changed; this thread's CPU time over the cycle
-   minus an idle cycle.
+   a new tick, Textual repaints what changed, the garbage collector runs between
+   frames; this thread's CPU time over the cycle minus an idle cycle.
 2. The same power trace drawn by plotext (installed; used nowhere else in lobewatch)
    rebuilt from scratch per frame, next to our braille trace widget at the same size.
 3. With ``--live S``: a paced publisher in another process at 1,000,000 samples/s
@@ -35,7 +35,7 @@ sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 from stream.estimator import EstimatorConfig, RollingPattern  # noqa: E402
 from stream.monitor import Monitor  # noqa: E402
-from tui.app import LobewatchApp, tune_gc  # noqa: E402
+from tui.app import LobewatchApp  # noqa: E402
 from tui.widgets.sample import sample_model, sample_tick  # noqa: E402
 
 #: Per-frame timings use this thread's CPU time, so other processes on a busy machine
@@ -65,7 +65,7 @@ async def bench_frames(frames: int, size: tuple[int, int],
     async with app.run_test(size=size) as pilot:
         await pilot.pause()
         if gc_tuned:
-            tune_gc()  # what the app does in a real terminal
+            app.pace_gc()  # what the app does in a real terminal
         polar, trace, trend = app.w_polar, app.w_trace, app.w_trend
         screen = app.screen
         console = app.console
@@ -99,6 +99,10 @@ async def bench_frames(frames: int, size: tuple[int, int],
             update.render_segments(console)
             out["screen"].append(clock() - t0)
             out["screen_wall"].append(time.perf_counter() - w0)
+            if gc_tuned:
+                t0 = clock()
+                app.collect_between_frames()  # the app does this after each repaint
+                out.setdefault("gc", []).append(clock() - t0)
             await asyncio.sleep(0)
         # the refresh as the running app does it: push the tick, then let Textual lay
         # out (if needed), repaint the changed regions and write the frame; CPU of this
@@ -229,7 +233,6 @@ async def bench_live(seconds: float, size: tuple[int, int]) -> dict[str, float]:
         src = ZmqSource(endpoint, stale_after_s=3.0)
         drv = LiveDriver(src, mon, interval_s=0.1)
         app = LobewatchApp(mon, drv, mode="live", refresh_hz=10.0)
-        tune_gc()
         calls = [0]
         orig = app.refresh_view
 
@@ -239,6 +242,7 @@ async def bench_live(seconds: float, size: tuple[int, int]) -> dict[str, float]:
 
         app.refresh_view = counted  # type: ignore[method-assign]
         async with app.run_test(size=size) as pilot:
+            app.pace_gc()  # as in a real terminal
             await pilot.pause(2.0)
             s0, c0, w0, k0 = mon.estimator.samples, cpu(), time.perf_counter(), calls[0]
             await asyncio.sleep(seconds)
@@ -289,6 +293,8 @@ def main() -> int:
     print(row("trend widget", r["trend"]))
     print(row("whole screen, full repaint + escape codes", r["screen"]))
     print(row("  same, wall clock", r["screen_wall"]))
+    if "gc" in r:
+        print(row("  garbage collection after each frame", r["gc"]))
     print(row("app refresh cycle (partial repaint, real loop)", r["refresh"]))
     print(row(f"plotext trace rebuilt per frame ({w}x{h})", r["plotext"]))
     print(row(f"braille trace widget, same data ({w}x{h})", r["trace_same"]))

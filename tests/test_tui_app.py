@@ -460,3 +460,18 @@ async def test_no_color_keeps_every_mark_readable(monkeypatch) -> None:
         for mark in ("◆", "◎", "━ live", "╌ −3dB", "╍ ref", "┈ model", "┊ target",
                      "● receiving", "OUT"):
             assert mark in text, mark
+
+
+def test_garbage_is_collected_between_frames_on_a_schedule(monkeypatch) -> None:
+    """Young generation after every frame, middle every 20th, full every 600th."""
+    import gc
+
+    import tui.app as appmod
+    calls: list[int] = []
+    monkeypatch.setattr(gc, "collect", lambda generation=2: calls.append(generation) or 0)
+    app = LobewatchApp(make_monitor(), None, refresh_hz=0)
+    for _ in range(appmod.GC_FULL_EVERY):
+        app.collect_between_frames()
+    assert calls.count(2) == 1 and calls[-1] == 2
+    assert calls.count(1) == appmod.GC_FULL_EVERY // appmod.GC_MIDDLE_EVERY - 1
+    assert calls.count(0) == len(calls) - calls.count(1) - 1

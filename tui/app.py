@@ -63,18 +63,25 @@ REPLAY_ACTIONS = frozenset({"replay_pause", "faster", "slower", "seek", "next_ev
 
 
 def tune_gc() -> None:
-    """Fewer, cheaper garbage collections while the screen runs.
+    """Take the cyclic garbage collector off the frame path.
 
-    Every frame allocates many short-lived objects, and CPython's default thresholds
-    then start full collections that walk Textual's whole widget tree: 30-90 ms pauses
-    at 120x40 here.  Objects alive after start-up are frozen out of the collector's
-    sight and the youngest generation is collected every 20,000 allocations instead
-    of 700 (measured with bench/bench_redraw.py).  Process-wide, so only for a real
+    Every frame allocates thousands of short-lived objects; with CPython's default
+    thresholds the collector then runs several times per frame and now and then walks
+    Textual's whole widget tree (30-130 ms outliers at 120x40 here).  Objects alive
+    after start-up are frozen out of its sight and automatic collection is made rare
+    (threshold 20,000); :meth:`LobewatchApp.collect_between_frames` then collects the
+    young generations right after each repaint instead, so the pause falls between
+    frames (measured with bench/bench_redraw.py).  Process-wide, so only for a real
     terminal run, not under tests.
     """
     gc.collect()
     gc.freeze()
     gc.set_threshold(20_000, 20, 100)
+
+
+#: Frames between collections of the middle and the oldest generation.
+GC_MIDDLE_EVERY = 20
+GC_FULL_EVERY = 600
 
 
 def default_tolerance_deg(hpbw_deg: float | None) -> float:
@@ -159,6 +166,8 @@ class LobewatchApp(App[int]):
         self.replay_speed = float(getattr(driver, "speed", 1.0) or 1.0)
         self.driver_done = False
         self.driver_error: str | None = None
+        self._gc_paced = False
+        self._frames = 0
         self._stop = asyncio.Event()
         self._shown: Tick | None = None
         self._shown_at = time.monotonic()
@@ -203,7 +212,7 @@ class LobewatchApp(App[int]):
         if self.is_headless:
             pass  # tests: leave the process's signal handling and collector alone
         else:
-            tune_gc()
+            self.pace_gc()
             # Terminal closed or ``kill``: leave like ``q`` does, so the driver, the
             # recorder and (in demo) the publisher shut down cleanly.
             loop = asyncio.get_running_loop()
@@ -263,6 +272,24 @@ class LobewatchApp(App[int]):
             self.show_tick(tick)
         self.w_alarms.show(getattr(self.monitor, "alarms", None))
         self._announce_alarms()
+        if self._gc_paced:
+            self.call_after_refresh(self.collect_between_frames)
+
+    def pace_gc(self) -> None:
+        """Collect garbage between frames instead of inside them (see :func:`tune_gc`)."""
+        tune_gc()
+        self._gc_paced = True
+
+    def collect_between_frames(self) -> None:
+        """Young generation after every repaint, the middle one every
+        ``GC_MIDDLE_EVERY`` frames, everything every ``GC_FULL_EVERY`` frames."""
+        self._frames += 1
+        if self._frames % GC_FULL_EVERY == 0:
+            gc.collect()
+        elif self._frames % GC_MIDDLE_EVERY == 0:
+            gc.collect(1)
+        else:
+            gc.collect(0)
 
     def show_tick(self, tick: Tick | None) -> None:
         """Push one tick into every widget (the refresh timer and tests call this)."""
