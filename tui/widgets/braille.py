@@ -182,17 +182,22 @@ class BrailleCanvas:
     def cells(self) -> tuple[np.ndarray, np.ndarray]:
         """The characters (H x W, '<U1') and style indices (-1 = base) of every cell."""
         h, w = self.height, self.width
-        style = np.full((h, w), -1, dtype=np.int16)
         if self._layers:
-            combined = np.zeros((self.dot_height, self.dot_width), dtype=bool)
-            for dots, name in self._layers:
-                combined |= dots
-                has = dots.reshape(h, 4, w, 2).any(axis=(1, 3))
-                style[has] = self._style_names.index(name)
-            codes = np.einsum("iajb,ab->ij", combined.reshape(h, 4, w, 2).astype(np.uint8),
-                              DOT_BITS, dtype=np.uint8)
+            # which layer drew each dot last (0 = none), then per cell the latest layer
+            # present: one reduction whatever the number of layers
+            lay = np.zeros((self.dot_height, self.dot_width), dtype=np.int8)
+            for k, (dots, _name) in enumerate(self._layers, start=1):
+                lay[dots] = k
+            layer_style = np.array(
+                [-1] + [self._style_names.index(name) for _dots, name in self._layers],
+                dtype=np.int16)
+            cells4 = lay.reshape(h, 4, w, 2)
+            style = layer_style[cells4.max(axis=(1, 3))]
+            codes = np.einsum("iajb,ab->ij", (cells4 > 0).astype(np.uint8), DOT_BITS,
+                              dtype=np.uint8)
             chars = _GLYPHS[codes]
         else:
+            style = np.full((h, w), -1, dtype=np.int16)
             chars = np.full((h, w), " ", dtype="<U1")
         over = self._text != ""
         chars[over] = self._text[over]
@@ -213,18 +218,17 @@ class BrailleCanvas:
         pos = np.where(fill, 0, np.arange(w, dtype=np.intp)[None, :])
         np.maximum.accumulate(pos, axis=1, out=pos)
         style = np.take_along_axis(style, pos, axis=1)
-        cuts_all = np.diff(style, axis=1) != 0
-        strips: list[Strip] = []
-        for r in range(h):
-            text = rows[r]
-            row_style = style[r]
-            bounds = [0, *(np.flatnonzero(cuts_all[r]) + 1).tolist(), w]
-            segs = []
-            for a, b in zip(bounds[:-1], bounds[1:], strict=False):
-                si = int(row_style[a])
-                segs.append(Segment(text[a:b], resolved[si] if si >= 0 else base))
-            strips.append(Strip(segs, w))
-        return strips
+        starts = np.ones((h, w), dtype=bool)
+        starts[:, 1:] = style[:, 1:] != style[:, :-1]
+        run_row, run_col = np.nonzero(starts)
+        run_end = np.append(run_col[1:], w)
+        run_end[np.append(run_row[1:] != run_row[:-1], True)] = w
+        run_style = style[run_row, run_col].tolist()
+        rows_segs: list[list[Segment]] = [[] for _ in range(h)]
+        for r, a, b, si in zip(run_row.tolist(), run_col.tolist(), run_end.tolist(),
+                               run_style, strict=True):
+            rows_segs[r].append(Segment(rows[r][a:b], resolved[si] if si >= 0 else base))
+        return [Strip(segs, w) for segs in rows_segs]
 
     def to_text(self) -> str:
         """Plain text of the canvas (tests and debugging)."""
