@@ -44,6 +44,9 @@ _FEW_BINS: int = 4
 _FULL_TURN_DEG: float = 360.0 - 1e-9
 
 
+#: First chunk scanned for a sweep end; later chunks double.
+_SCAN_CHUNK: int = 256
+
 def _is_real(v: object) -> bool:
     return isinstance(v, numbers.Real) and not isinstance(v, bool)
 
@@ -478,8 +481,14 @@ class RollingPattern:
                     self._ext = min(ext, lo)
                     self._e_lo, self._e_hi = min(e_lo, lo), max(e_hi, hi)
                     return -1
+        # Scan in chunks that start small and double: a batch full of reversals (junk, or
+        # a jittering encoder) then costs O(chunk) per reversal instead of O(rest of batch),
+        # while a long event-free stretch still takes few vector calls.
+        chunk = _SCAN_CHUNK
         while k < n:
-            seg = u[k:]
+            seg = u[k:k + chunk]
+            m = seg.shape[0]
+            chunk *= 2
             if d == 0:
                 if math.isnan(ext):
                     ext = e_lo = e_hi = float(seg[0])
@@ -491,7 +500,8 @@ class RollingPattern:
                 if not far[j]:
                     e_lo = min(e_lo, float(seg.min()))
                     e_hi = max(e_hi, float(seg.max()))
-                    break
+                    k += m
+                    continue
                 d = 1 if dev[j] > 0 else -1
                 ext = float(seg[j])
                 e_lo = min(e_lo, float(seg[:j + 1].min()))
@@ -528,7 +538,8 @@ class RollingPattern:
                 ext = float(run[-1])
                 e_lo = min(e_lo, float(seg.min()))
                 e_hi = max(e_hi, float(seg.max()))
-                break
+                k += m
+                continue
             x = float(seg[j])
             if back[j] > h:  # reversal: a new sweep the other way
                 self._dir, self._ext, self._e_lo, self._e_hi = -d, x, x, x
