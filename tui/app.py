@@ -17,6 +17,7 @@ import gc
 import inspect
 import os
 import signal
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import replace
@@ -77,6 +78,15 @@ def tune_gc() -> None:
     gc.collect()
     gc.freeze()
     gc.set_threshold(20_000, 20, 100)
+
+
+#: Seconds a signalled exit may take before the process is ended outright.
+EXIT_GRACE_S = 10.0
+
+
+def _exit_if_still_alive(grace_s: float) -> None:
+    time.sleep(grace_s)
+    os._exit(1)
 
 
 #: Frames between collections of the middle and the oldest generation.
@@ -229,6 +239,10 @@ class LobewatchApp(App[int]):
         self._stop.set()
         self._close_recorder()
         self.exit(0)
+        # With the terminal gone (SIGHUP), restoring it can wedge the exit; a process
+        # left behind would keep its driver (and a demo publisher) running for ever.
+        threading.Thread(target=_exit_if_still_alive, args=(EXIT_GRACE_S,),
+                         name="lobewatch-exit-watchdog", daemon=True).start()
 
     async def _drive(self) -> None:
         """Run the driver until the stop event; report a failure on screen."""
