@@ -220,6 +220,7 @@ class RollingPattern:
         self._u_cnt = np.zeros(nb)                    # ema: sample count of the last update
         self._sw_sum = np.zeros(nb)                   # sweep in progress: sum per bin
         self._sw_cnt = np.zeros(nb, dtype=np.int64)   # sweep in progress: count per bin
+        self._sw_off = np.zeros(nb)                   # sweep in progress: offset sum
         self._sw_lo = math.inf                        # sweep in progress: range of u
         self._sw_hi = -math.inf
         k = self.config.sweeps_k if not self._ema else 0
@@ -228,6 +229,8 @@ class RollingPattern:
         self._ring_pos = 0
         self._tot_sum = np.zeros(nb if k else 0)      # sweeps: sum of the ring rows
         self._tot_cnt = np.zeros(nb if k else 0, dtype=np.int64)
+        self._off_sum = np.zeros(nb)                  # sum of sample offsets from centre
+        self._off_cnt = np.zeros(nb)                  # (in bins) and their count
         self._now_max = -math.inf                     # latest receive time seen
         self._dir = 0                                 # +1 up, -1 down, 0 not yet known
         self._ext = math.nan                          # furthest angle in the direction
@@ -315,16 +318,27 @@ class RollingPattern:
         span = i1 - i0 + 1
         s = np.bincount(idx, weights=lin, minlength=span)
         c = np.bincount(idx, minlength=span)
+        # Where in its bin each sample fell (bins of offset, -1/2 .. 1/2): a bin's angle
+        # is its samples' mean angle, not its centre, so a steering grid that does not
+        # line up with the bins (0.5-degree steps in 1-degree bins) gives no bias.
+        x -= idx
+        x -= i0 + 0.5
+        so = np.bincount(idx, weights=x, minlength=span)
         if seam:
             s[0] += s[nb]
             c[0] += c[nb]
+            so[0] += so[nb]
             s = s[:nb]
             c = c[:nb]
+            so = so[:nb]
         win = slice(i0, i0 + s.shape[0])
 
         u, u_lo, u_hi = self._unwrap(a, lo, hi)
         b = self._next_boundary(u, 0, u_lo, u_hi)
         if b < 0:
+            self._off_sum[win] += so
+            self._off_cnt[win] += c
+            self._sw_off[win] += so
             self._sw_lo = min(self._sw_lo, u_lo)
             self._sw_hi = max(self._sw_hi, u_hi)
             if span <= _FEW_BINS:
@@ -339,11 +353,11 @@ class RollingPattern:
             k = 0
             while b >= 0:
                 if b > k:
-                    self._add_to_sweep(u[k:b], idx[k:b], lin[k:b], win, seam)
+                    self._add_to_sweep(u[k:b], idx[k:b], lin[k:b], x[k:b], win, seam)
                 self._end_sweep(now)
                 k = b
                 b = self._next_boundary(u, b + 1, math.nan, math.nan) if b + 1 < n else -1
-            self._add_to_sweep(u[k:], idx[k:], lin[k:], win, seam)
+            self._add_to_sweep(u[k:], idx[k:], lin[k:], x[k:], win, seam)
 
         tl = np.flatnonzero(c)
         tb = tl + i0 if i0 else tl
@@ -406,23 +420,29 @@ class RollingPattern:
         self._u_sum[tb] = ss
         self._u_cnt[tb] = cs
 
-    def _add_to_sweep(self, u: np.ndarray, idx: np.ndarray, lin: np.ndarray, win: slice,
-                      seam: bool) -> None:
-        """Add samples (continuous angles, window-relative bin indices) to the sweep in
-        progress."""
+    def _add_to_sweep(self, u: np.ndarray, idx: np.ndarray, lin: np.ndarray, off: np.ndarray,
+                      win: slice, seam: bool) -> None:
+        """Add samples (continuous angles, window-relative bin indices, offsets in their
+        bins) to the sweep in progress and to the bins' mean angles."""
         self._sw_lo = min(self._sw_lo, float(u.min()))
         self._sw_hi = max(self._sw_hi, float(u.max()))
         span = win.stop - win.start + (1 if seam else 0)
         s = np.bincount(idx, weights=lin, minlength=span)
         c = np.bincount(idx, minlength=span)
+        so = np.bincount(idx, weights=off, minlength=span)
         if seam:
             nb = self._nb
             s[0] += s[nb]
             c[0] += c[nb]
+            so[0] += so[nb]
             s = s[:nb]
             c = c[:nb]
+            so = so[:nb]
         self._sw_sum[win] += s
         self._sw_cnt[win] += c
+        self._off_sum[win] += so
+        self._off_cnt[win] += c
+        self._sw_off[win] += so
 
     def _unwrap(self, a: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, float, float]:
         """The batch on the continuous angle axis ``u = a + 360 k``, where ``k`` counts the
@@ -571,7 +591,9 @@ class RollingPattern:
         if filled.shape[0] < MIN_SWEEP_BINS:
             return
         sums = self._sw_sum[filled]
-        angle = self._centres[filled]
+        # Each sweep is measured on its own samples, their mean angle per bin included.
+        angle = self._centres[filled] + (self._sw_off[filled] / cnt[filled]
+                                         * self.config.bin_width_deg)
         power_db = 10.0 * np.log10(sums / cnt[filled])
         metrics = measure(angle, power_db)
         self._history.append(SweepRecord(
@@ -595,10 +617,18 @@ class RollingPattern:
             self._ring_cnt.sum(axis=0, out=self._tot_cnt)
         self._sw_sum = np.zeros(self._nb)
         self._sw_cnt = np.zeros(self._nb, dtype=np.int64)
+        self._sw_off = np.zeros(self._nb)
         self._sw_lo = math.inf
         self._sw_hi = -math.inf
 
     # -- readout ----------------------------------------------------------------------
+    def _bin_angle(self, sel: np.ndarray) -> np.ndarray:
+        """Mean angle of the samples that fell in bins ``sel`` (all samples so far: the
+        angle grid of a sweep does not change with time), in degrees."""
+        n = self._off_cnt[sel]
+        off = self._off_sum[sel] / np.where(n > 0, n, 1.0)
+        return self._centres[sel] + off * self.config.bin_width_deg
+
     def snapshot(self, now: float) -> PatternSnapshot:
         """The valid bins at ``now``: filled and refreshed within ``stale_after_s``."""
         fresh = self._last_t >= float(now) - self.config.stale_after_s
@@ -609,8 +639,15 @@ class RollingPattern:
             cnt = self._tot_cnt + self._sw_cnt
             sel = np.flatnonzero(fresh & (cnt > 0))
             lin = (self._tot_sum[sel] + self._sw_sum[sel]) / cnt[sel]
-        return PatternSnapshot(t=float(now), angle_deg=self._centres[sel],
-                               power_db=10.0 * np.log10(lin))
+        angle = self._bin_angle(sel)
+        power_db = 10.0 * np.log10(lin)
+        if angle.shape[0] and angle[0] < -180.0:
+            # The seam bin's samples sit mostly just below +180: keep the output in
+            # [-180, 180) and sorted by moving that bin to the end.
+            angle[0] += 360.0
+            angle = np.roll(angle, -1)
+            power_db = np.roll(power_db, -1)
+        return PatternSnapshot(t=float(now), angle_deg=angle, power_db=power_db)
 
 
 def _clean(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
