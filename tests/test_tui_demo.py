@@ -137,3 +137,52 @@ def test_demo_command_in_a_terminal_shows_a_beam_and_quits_cleanly() -> None:
             proc.wait(5.0)
         os.close(master)
         shutil.rmtree(tmp, ignore_errors=True)
+
+
+# -- the demo's own limits, judged on its scenarios faster than real time ----------------
+
+def _demo_alarms(scenario: str, duration_s: float, extra: tuple[str, ...] = ()) -> list:
+    """Run ``lobewatch demo --scenario S``'s pipeline (its own defaults) on the pure
+    simulator with injected time; return (elapsed s, rule, transition) of alarm events."""
+    from stream.synth import SynthSource
+    from stream.tick import SourceStats
+    from tui.cli import build_parser
+    from tui.commands.demo import build_demo_monitor, synth_config
+
+    args = build_parser().parse_args(["demo", "--scenario", scenario, "--rate-sps", "1000",
+                                      *extra])
+    config = synth_config(args)
+    monitor = build_demo_monitor(args, config)
+    t0 = 1_767_225_600.0  # invented start time
+    src = SynthSource(config, start_t=t0)
+    stats = SourceStats(state="receiving", messages=1)
+    out = []
+    for i in range(int(duration_s / 0.5)):
+        t = t0 + i * 0.5
+        for b in src.batches(t, 0.5):
+            monitor.ingest(b)
+        tick = monitor.tick(t + 0.5, stats)
+        out += [(e.t - t0, e.data["rule"], e.data.get("transition")) for e in tick.events
+                if e.kind == "alarm"]
+    return out, monitor
+
+
+def test_demo_dead_column_raises_broadening_and_gain_loss_after_the_failure() -> None:
+    """One column of four dies at 120 s (invented scenario): the beam widens by about a
+    third and the peak drops 20*log10(3/4) = -2.5 dB (Balanis, Antenna Theory, ch. 6:
+    array factor of the remaining elements; from memory).  With the demo's limits both
+    rules raise within 60 s, and nothing before the failure."""
+    events, monitor = _demo_alarms("dead-column", 200.0)
+    assert monitor.reference is not None, "demo keeps a commissioning reference"
+    raised = {rule: t for t, rule, tr in events if tr == "raise"}
+    assert {"broadening", "gain_loss"} <= set(raised), events
+    assert all(120.0 < raised[r] < 180.0 for r in ("broadening", "gain_loss")), raised
+    assert not [e for e in events if e[0] < 120.0], events
+
+
+def test_demo_mast_sway_raises_drift_only_after_the_peak_passes_the_tolerance() -> None:
+    """The invented mast-sway timeline passes 2 deg at 180 s: the demo's 2-degree
+    tolerance raises drift after that, not before."""
+    events, _ = _demo_alarms("mast-sway", 240.0)
+    drift = [t for t, rule, tr in events if rule == "drift" and tr == "raise"]
+    assert drift and 170.0 < drift[0] < 230.0, events

@@ -38,8 +38,11 @@ Scenarios (all invented): """ + ", ".join(SCENARIOS) + """.
 `lobewatch synth --list-scenarios` prints their timelines.
 
 Unless --target-deg is given, the target is set to 0 degrees, where the simulated beam
-is aligned, so the drift scenario raises its alarm; the reflector scenario's direction
-is watched unless --watch-deg is given.  Array options (--elements,
+is aligned, with a 2-degree tolerance, so the drift scenario raises its alarm; the
+gain-loss limit is 2 dB (one dead column of four costs 2.5 dB), and the pattern is
+kept as the installation reference after the first 6 sweeps, as an installer would
+at commissioning; the reflector scenario's direction is watched unless --watch-deg is
+given.  A --config file replaces these demo limits.  Array options (--elements,
 --spacing-wl, --element-exp, --taper) describe the simulated array and its model.
 """
 
@@ -178,10 +181,44 @@ def build_demo_monitor(args: argparse.Namespace, config: SynthConfig) -> Monitor
     scenario = SCENARIOS[config.scenario]
     if scenario.reflector_deg is not None and not getattr(args, "watch_deg", None):
         args.watch_deg = [float(scenario.reflector_deg)]
+    if not getattr(args, "config", None):
+        # The scenarios' timelines are written for these limits (see --help).
+        if config.mode == "sweep" and getattr(args, "tolerance_deg", None) is None:
+            args.tolerance_deg = DEMO_TOLERANCE_DEG
+        if getattr(args, "gain_loss_db", None) is None:
+            args.gain_loss_db = DEMO_GAIN_LOSS_DB
     monitor = build_monitor(args, model=demo_model(config))
     if monitor.target_deg is None and config.mode == "sweep":
         monitor.target_deg = 0.0  # where the simulated beam is aligned
+    if monitor.tolerance_deg is None and config.mode == "sweep":
+        monitor.tolerance_deg = getattr(args, "tolerance_deg", None)
+    monitor.tick_sinks.append(_CommissioningReference(monitor))
     return monitor
+
+
+#: Demo limits: a 2-degree pointing tolerance (about 0.08 HPBW of the 4-element beam)
+#: and a 2 dB gain-loss limit, so one dead column of four (-2.5 dB) is reported.
+DEMO_TOLERANCE_DEG: float = 2.0
+DEMO_GAIN_LOSS_DB: float = 2.0
+#: Sweeps seen before the demo keeps the pattern as its installation reference.
+DEMO_REFERENCE_SWEEPS: int = 6
+
+
+class _CommissioningReference:
+    """Capture the reference once the first few sweeps are in, as an installer would at
+    commissioning, so the gain-loss rule has something to compare with."""
+
+    def __init__(self, monitor: Monitor) -> None:
+        self.monitor = monitor
+        self.done = False
+
+    def __call__(self, tick: Any) -> None:
+        m = self.monitor
+        if self.done or tick.sweeps < DEMO_REFERENCE_SWEEPS:
+            return
+        self.done = True  # once: clearing the reference by hand stays cleared
+        if m.reference is None:
+            m.capture_reference(tick.t)
 
 
 def _recorder_factory(args: argparse.Namespace, monitor: Monitor,
