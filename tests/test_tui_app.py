@@ -475,3 +475,19 @@ def test_garbage_is_collected_between_frames_on_a_schedule(monkeypatch) -> None:
     assert calls.count(2) == 1 and calls[-1] == 2
     assert calls.count(1) == appmod.GC_FULL_EVERY // appmod.GC_MIDDLE_EVERY - 1
     assert calls.count(0) == len(calls) - calls.count(1) - 1
+
+
+async def test_a_recording_started_by_the_command_line_shows_and_the_key_stops_it(
+        tmp_path) -> None:
+    """`lobewatch live --record FILE` starts recording before the screen opens: the
+    status line shows it at once and the record key stops that same recording."""
+    mon = make_monitor()
+    rec = FakeRecorder(str(tmp_path / "site.lws"))
+    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20, recorder=rec,
+                       recorder_factory=lambda: FakeRecorder(str(tmp_path / "other.lws")))
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(pilot, app)
+        app.refresh_view()
+        assert "REC site.lws 12.3 kB" in app.query_one(StatusLine).plain
+        await pilot.press("w")
+        assert app.recorder is None and rec.closed

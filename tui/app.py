@@ -157,7 +157,7 @@ class LobewatchApp(App[int]):
     def __init__(self, monitor: Monitor, driver: Any | None, *, mode: str = "live",
                  recorder_factory: Callable[[], Any] | None = None,
                  refresh_hz: float = 10.0, title: str | None = None,
-                 bell: bool = False) -> None:
+                 bell: bool = False, recorder: Any | None = None) -> None:
         if mode not in MODES:
             raise ValueError(f"mode must be one of {MODES}, got {mode!r}")
         super().__init__()
@@ -170,7 +170,7 @@ class LobewatchApp(App[int]):
             self.title = title
         self.bell_on_alarm = bool(bell)
         self._alarm_events: list[Any] = []
-        self.recorder: Any | None = None
+        self.recorder: Any | None = recorder  # one started by --record, or by the key
         self.display_paused = False
         self.replay_paused = False
         self.replay_speed = float(getattr(driver, "speed", 1.0) or 1.0)
@@ -552,9 +552,12 @@ def _size_text(n: int | None) -> str:
 
 
 def run_app(args: argparse.Namespace | None, monitor: Monitor, driver: Any, mode: str,
-            recorder_factory: Callable[[], Any] | None = None) -> int:
+            recorder_factory: Callable[[], Any] | None = None,
+            recorder: Any | None = None) -> int:
     """Open the beam screen until the user quits; returns the exit status."""
     refresh_hz = float(getattr(args, "refresh_hz", None) or 10.0)
+    if not refresh_hz > 0:
+        raise UserError(f"--refresh-hz must be positive, got {refresh_hz}")
     title = getattr(args, "title", None)
     bell = False
     if args is not None:
@@ -564,7 +567,7 @@ def run_app(args: argparse.Namespace | None, monitor: Monitor, driver: Any, mode
         except (ImportError, AttributeError):
             bell = bool(getattr(args, "bell", False))
     app = LobewatchApp(monitor, driver, mode=mode, recorder_factory=recorder_factory,
-                       refresh_hz=refresh_hz, title=title, bell=bell)
+                       refresh_hz=refresh_hz, title=title, bell=bell, recorder=recorder)
     result = app.run()
     if app.driver_error:
         raise UserError(app.driver_error)

@@ -48,6 +48,13 @@ def add_pipeline_arguments(parser: argparse.ArgumentParser) -> None:
         add_alarm_arguments(parser)
 
 
+def add_screen_arguments(parser: argparse.ArgumentParser) -> None:
+    """Options of the beam screen (ignored with --headless)."""
+    parser.add_argument("--refresh-hz", type=float, default=10.0, metavar="HZ",
+                        help="screen redraws per second (default 10); the pipeline's "
+                             "readouts keep their own --interval")
+
+
 def model_from_args(args: argparse.Namespace) -> ArrayModel | None:
     n = getattr(args, "elements", None)
     if n is None:

@@ -26,6 +26,7 @@ from stream.monitor import Monitor
 from stream.scenarios import SCENARIOS
 from stream.synth import SynthConfig, run_publisher
 from tui.cli import UsageError
+from tui.options import add_pipeline_arguments, add_screen_arguments
 
 _D = SynthConfig()
 
@@ -80,18 +81,13 @@ def register(subparsers: Any) -> None:
     p.add_argument("--noise-db", type=float, default=_D.noise_db, metavar="DB",
                    help=f"measurement jitter, standard deviation in dB (default "
                         f"{_D.noise_db:g})")
-    p.add_argument("--refresh-hz", type=float, default=10.0, metavar="HZ",
-                   help="screen redraws per second (default 10)")
+    add_screen_arguments(p)
     p.add_argument("--interval", type=float, default=0.1, metavar="S",
                    help="seconds between readouts of the pipeline (default 0.1)")
-    _add_pipeline(p)
+    add_pipeline_arguments(p)
     defaults = {a.dest: a.default for a in p._actions if a.dest != "help"}
     p.set_defaults(func=run, _defaults=defaults)
 
-
-def _add_pipeline(p: argparse.ArgumentParser) -> None:
-    from tui.options import add_pipeline_arguments
-    add_pipeline_arguments(p)
 
 
 @dataclass
@@ -247,8 +243,6 @@ def run(args: argparse.Namespace) -> int:
     from stream.zmq_source import ZmqSource
     from tui.app import run_app
 
-    if not args.refresh_hz > 0:
-        raise UsageError(f"--refresh-hz must be positive, got {args.refresh_hz}")
     if not args.interval > 0:
         raise UsageError(f"--interval must be positive, got {args.interval}")
     config = synth_config(args)

@@ -13,6 +13,7 @@ from stream.monitor import Monitor
 from stream.wire import DEFAULT_MAX_MESSAGE_BYTES, FORMATS
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
 from tui.cli import UsageError
+from tui.options import add_pipeline_arguments, add_screen_arguments, build_monitor
 
 DESCRIPTION = """\
 Subscribe to a ZeroMQ PUB endpoint carrying (angle, power) samples in wire format v1
@@ -69,35 +70,13 @@ def register(subparsers: Any) -> None:
                      help="also record the session to FILE (.lws) for replay")
     out.add_argument("--force", action="store_true",
                      help="overwrite FILE given to --record")
-    _add_pipeline(p)
+    add_screen_arguments(p)
+    add_pipeline_arguments(p)
     p.set_defaults(func=run)
 
 
-def _add_pipeline(p: argparse.ArgumentParser) -> None:
-    try:
-        from tui.options import add_pipeline_arguments
-    except ModuleNotFoundError as exc:  # shared options not available: model only
-        if exc.name != "tui.options":
-            raise
-        p.add_argument("--elements", type=int, metavar="N", help="array elements N")
-        p.add_argument("--spacing-wl", type=float, default=0.5, metavar="D",
-                       help="element spacing, wavelengths (default 0.5)")
-        return
-    add_pipeline_arguments(p)
-
-
 def build_pipeline(args: argparse.Namespace) -> Monitor:
-    """The monitor for these options (shared options when available)."""
-    try:
-        from tui.options import build_monitor
-    except ModuleNotFoundError as exc:
-        if exc.name != "tui.options":
-            raise
-        from stream.array_model import ArrayModel
-        from stream.estimator import RollingPattern
-        model = (ArrayModel(args.elements, args.spacing_wl)
-                 if getattr(args, "elements", None) else None)
-        return Monitor(RollingPattern(), None, model)
+    """The monitor for these options."""
     return build_monitor(args)
 
 
@@ -177,7 +156,8 @@ def run(args: argparse.Namespace) -> int:
             path = time.strftime("lobewatch-%Y%m%d-%H%M%S.lws")
             return _recorder(path, _metadata(args, monitor), False, monitor)
 
-        return run_app(args, monitor, driver, mode="live", recorder_factory=new_recording)
+        return run_app(args, monitor, driver, mode="live", recorder_factory=new_recording,
+                       recorder=recorder)
     finally:
         if source is not None:
             source.close()

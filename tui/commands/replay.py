@@ -18,7 +18,7 @@ from replay.session import SessionReader
 from stream.errors import UserError
 from stream.monitor import Monitor
 from tui.cli import UsageError
-from tui.options import add_pipeline_arguments, build_monitor
+from tui.options import add_pipeline_arguments, add_screen_arguments, build_monitor
 
 _MODEL_DESTS = ("elements", "spacing_wl", "element_exp", "steer_deg", "taper")
 _ESTIMATOR_DESTS = ("bin_deg", "averaging", "tau_s", "sweeps_k", "bin_max_age_s")
@@ -47,6 +47,7 @@ def register(subparsers: Any) -> None:
                         "(default 5 x --tau-s, or 30 with --averaging sweeps)")
     p.add_argument("--start", type=float, default=None, metavar="S",
                    help="begin S seconds into the session")
+    add_screen_arguments(p)
     add_pipeline_arguments(p)
     defaults = {a.dest: a.default for a in p._actions if a.dest != "help"}
     p.set_defaults(func=run, _defaults=defaults)
