@@ -128,7 +128,7 @@ async def test_readout_shows_the_values_of_a_known_tick() -> None:
         assert v["rd-v-sweeps"] == "151"
         assert v["rd-v-lost"] == "3" and v["rd-v-rej"] == "2"
         assert v["rd-spread"].startswith("±0.21°")
-        assert v["rd-target"] == "tgt +10.0±3.0"
+        assert v["rd-target"] == "tgt +10.0°±3.0°"
         assert v["rd-offset"] == f"off {m.peak_angle_deg - 10.0:+.1f}° ok"
         # the figure is on screen, and the label tooltips name the metric keys
         text = screen_text(app)
@@ -186,7 +186,9 @@ async def test_readout_shows_what_the_estimator_computed_for_a_simulated_beam() 
         assert abs(tick.metrics.hpbw_deg - 12.80) < 0.5
         v = app.query_one(Readout).values()
         assert v["rd-v-hpbw"] == f"{tick.metrics.hpbw_deg:.1f}°"
-        assert v["rd-digits"].strip() == f"{tick.metrics.peak_angle_deg:+.1f}"
+        # rounded as shown, and never "-0.0"
+        assert v["rd-digits"].strip() == f"{round(tick.metrics.peak_angle_deg, 1) + 0.0:+.1f}"
+        assert v["rd-digits"].strip() != "-0.0"
         assert abs(tick.metrics.peak_angle_deg) < 0.3
         assert v["rd-v-exp"] == f"{tick.expected_hpbw_deg:.1f}°"
 

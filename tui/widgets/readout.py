@@ -150,6 +150,7 @@ def fmt(value: float | None, unit: str = "", digits: int = 1, signed: bool = Fal
     """A number with its unit, or a dash when it is undetermined."""
     if value is None or not math.isfinite(value):
         return DASH
+    value = round(value, digits) + 0.0  # no "-0.0": -0.0 + 0.0 is +0.0
     s = f"{value:+.{digits}f}" if signed else f"{value:.{digits}f}"
     return f"{s}{unit}"
 
@@ -249,8 +250,8 @@ class Readout(Widget):
                   else "± — over sweeps")
         if tick.target_deg is not None:
             tol = tick.tolerance_deg
-            self._set("rd-target", f"tgt {tick.target_deg:+.1f}"
-                      + (f"±{tol:.1f}" if tol else ""))
+            self._set("rd-target", f"tgt {fmt(tick.target_deg, '°', 1, signed=True)}"
+                      + (f"±{tol:.1f}°" if tol else ""))
             off = offset_deg(peak, tick.target_deg)
             if off is None:
                 self._set("rd-offset", f"off {DASH}")
@@ -258,7 +259,7 @@ class Readout(Widget):
                 verdict = ""
                 if tol:
                     verdict = " ok" if abs(off) <= tol else " OUT"
-                self._set("rd-offset", f"off {off:+.1f}°{verdict}")
+                self._set("rd-offset", f"off {fmt(off, '°', 1, signed=True)}{verdict}")
         else:
             self._set("rd-target", "no target")
             self._set("rd-offset", "")
