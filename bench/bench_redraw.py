@@ -8,7 +8,7 @@
    "App refresh cycle" = what the running app spends per refresh: the timer pushes
    a new tick, Textual repaints what changed, the garbage collector runs between
    frames; this thread's CPU time over the cycle minus an idle cycle.
-2. The same power trace drawn by plotext (installed; used nowhere else in lobewatch)
+2. The same power trace drawn by plotext (the `bench` extra; used nowhere else)
    rebuilt from scratch per frame, next to our braille trace widget at the same size.
 3. With ``--live S``: a paced publisher in another process at 1,000,000 samples/s
    (binary batches of 1000; see PACED_PUBLISHER), the real ZeroMQ source, estimator
