@@ -66,6 +66,19 @@ def difference(key: str, measured: float | None, expected: float | None) -> floa
     return d
 
 
+def _other_side(measured: dict, expected: dict) -> bool:
+    """True when the highest side lobe lies on opposite sides of the peak in the
+    measurement and the model: near-equal first side lobes (a symmetric pattern) make
+    which one is highest a matter of noise, so their directions are not compared."""
+    vals = (measured["sll_angle_deg"], measured["peak_angle_deg"],
+            expected["sll_angle_deg"], expected["peak_angle_deg"])
+    if any(v is None for v in vals):
+        return False
+    ms, mp, xs, xp = vals
+    return (difference("sll_angle_deg", ms, mp) or 0.0) * (
+        difference("sll_angle_deg", xs, xp) or 0.0) < 0
+
+
 def _fmt(v: float | None, decimals: int = _DECIMALS, signed: bool = False) -> str:
     if v is None:
         return MISSING
@@ -120,6 +133,9 @@ def format_table(entries: list[ReportEntry]) -> str:
                     dif.append("")
                     continue
                 exp.append(_fmt(x[k]))
+                if k == "sll_angle_deg" and _other_side(m, x):
+                    dif.append("other side")
+                    continue
                 d = difference(k, m[k], x[k])
                 dif.append(_fmt(d, signed=True) if d is not None else "")
             columns.append(("", "model", exp))

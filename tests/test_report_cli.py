@@ -196,3 +196,16 @@ def test_differences_wrap_angles_and_skip_absolute_power() -> None:
     assert difference("hpbw_deg", 20.0, 25.0) == pytest.approx(-5.0)
     assert difference("peak_power_db", -30.0, 0.0) is None
     assert difference("sll_db", None, -13.0) is None
+
+
+def test_side_lobe_directions_on_opposite_sides_are_not_subtracted(
+        capsys: pytest.CaptureFixture[str]) -> None:
+    """The invented 4-column sweep's highest side lobe is at -42 deg while the
+    symmetric broadside model's two first side lobes are equal (Balanis ch. 6: |AF| is
+    even in sin(theta) at broadside) and it names +45 deg: subtracting them (-87 deg)
+    would be meaningless, so the table says so instead."""
+    assert main(["report", EX4, "--elements", "4",
+                 "--element-exp", "1.2"]) == 0
+    row = next(line for line in capsys.readouterr().out.splitlines()
+               if "side lobe direction" in line)
+    assert row.rstrip().endswith("other side"), row
