@@ -231,24 +231,9 @@ def decode_json_object(obj: Any, rx_t: float) -> SampleBatch:
     return parse_json_object(obj, rx_t)
 
 
-def _parse_binary(header_frame: Any, data_frame: Any, rx_t: float, stream: str,
-                  max_samples: int) -> SampleBatch:
-    try:
-        hdr = json.loads(bytes(header_frame))
-    except (ValueError, RecursionError):
-        raise Reject("bad_json", "binary header is not JSON") from None
-    if type(hdr) is not dict:
-        raise Reject("bad_binary", "binary header is not a JSON object")
-    if "v" not in hdr:
-        raise Reject("bad_binary", "binary header has no v")
-    _version(hdr)
-    count = hdr.get("count")
-    if type(count) is not int:
-        raise Reject("bad_binary", "count must be an integer")
-    if count <= 0:
-        raise Reject("empty" if count == 0 else "bad_binary", "count")
-    if count > max_samples:
-        raise Reject("oversize", f"count {count}")
+def _binary_layout(hdr: dict) -> tuple[np.dtype, int, int, int, int, bool]:
+    """Check a binary header's dtype and fields; ``(dtype, n_fields, i_angle, i_power,
+    i_t or -1, calibrated)``.  Raises :class:`Reject`."""
     dname = hdr.get("dtype", "<f8")
     dtype = _DTYPES.get(dname) if type(dname) is str else None
     if dtype is None:
@@ -263,25 +248,66 @@ def _parse_binary(header_frame: Any, data_frame: Any, rx_t: float, stream: str,
         raise Reject("missing_field", "exactly one of power_dbm, power_db")
     if any(f not in _BIN_FIELDS for f in fields):
         raise Reject("bad_binary", "unknown field name")
+    calibrated = "power_dbm" in fields
+    return (dtype, len(fields), fields.index("angle_deg"),
+            fields.index("power_dbm" if calibrated else "power_db"),
+            fields.index("t") if "t" in fields else -1, calibrated)
+
+
+#: Layout cache size bound (a publisher uses one or two layouts).
+_MAX_LAYOUTS: int = 64
+
+
+def _parse_binary(header_frame: Any, data_frame: Any, rx_t: float, stream: str,
+                  max_samples: int, layouts: dict | None = None) -> SampleBatch:
+    """One binary batch; ``layouts`` caches checked (dtype, fields) layouts so a stream's
+    repeated header shape is checked once (only ``v``, ``count``, ``seq`` and ``epoch``
+    are read per message)."""
+    try:
+        hdr = json.loads(header_frame if type(header_frame) is bytes else bytes(header_frame))
+    except (ValueError, RecursionError):
+        raise Reject("bad_json", "binary header is not JSON") from None
+    if type(hdr) is not dict:
+        raise Reject("bad_binary", "binary header is not a JSON object")
+    if "v" not in hdr:
+        raise Reject("bad_binary", "binary header has no v")
+    _version(hdr)
+    count = hdr.get("count")
+    if type(count) is not int:
+        raise Reject("bad_binary", "count must be an integer")
+    if count <= 0:
+        raise Reject("empty" if count == 0 else "bad_binary", "count")
+    if count > max_samples:
+        raise Reject("oversize", f"count {count}")
+    layout = None
+    key: Any = None
+    if layouts is not None:
+        fields = hdr.get("fields")
+        if type(fields) is list:
+            try:
+                key = (hdr.get("dtype", "<f8"), *fields)
+                layout = layouts.get(key)
+            except TypeError:  # an unhashable field entry: the full check names it
+                key = None
+    if layout is None:
+        layout = _binary_layout(hdr)
+        if key is not None and len(layouts) < _MAX_LAYOUTS:  # type: ignore[arg-type]
+            layouts[key] = layout  # type: ignore[index]
+    dtype, nf, ia, ip, it, calibrated = layout
     seq, epoch = _seq_epoch(hdr)
     buf = memoryview(data_frame)
-    nf = len(fields)
     if buf.nbytes != count * nf * dtype.itemsize:
         raise Reject("bad_binary", f"data frame has {buf.nbytes} bytes, header says "
                                    f"{count} x {nf} x {dtype.itemsize}")
     block = np.frombuffer(buf, dtype=dtype).reshape(nf, count)
     if dtype.itemsize != 8:
         block = block.astype(np.float64)
-    ia = fields.index("angle_deg")
-    calibrated = "power_dbm" in fields
-    ip = fields.index("power_dbm" if calibrated else "power_db")
-    it = fields.index("t") if "t" in fields else -1
     a = block[ia]
     p = block[ip]
     # Two reductions check every field (NaN propagates through min/max and fails the
     # comparisons); the detailed checks run only to name the reason.
-    lo = block.min(axis=1)
-    hi = block.max(axis=1)
+    lo = block.min(axis=1).tolist()
+    hi = block.max(axis=1).tolist()
     if not (lo[ia] >= ANGLE_MIN_DEG and hi[ia] < ANGLE_MAX_DEG
             and lo[ip] >= POWER_MIN_DB and hi[ip] <= POWER_MAX_DB
             and (it < 0 or (-1e300 < lo[it] and hi[it] < 1e300))):
@@ -342,6 +368,7 @@ class Decoder:
         self.restarts = 0
         self.lost_after_restart = 0
         self._seq: dict[str, _StreamSeq] = {}
+        self._layouts: dict[tuple, tuple] = {}  # checked binary header layouts
 
     # -- counters ----------------------------------------------------------------------
     def reject(self, reason: str, n: int = 1) -> None:
@@ -580,11 +607,13 @@ class Decoder:
             return _parse_raw_f32(frames[-1], rx_t, stream, self.max_samples)
         if nparts == 3:
             stream = _topic(frames[0])
-            return _parse_binary(frames[1], frames[2], rx_t, stream, self.max_samples)
+            return _parse_binary(frames[1], frames[2], rx_t, stream, self.max_samples,
+                                 self._layouts)
         if nparts == 2:
             first = memoryview(frames[0])
             if first.nbytes and first[0] == 0x7B:  # '{': header + data
-                return _parse_binary(frames[0], frames[1], rx_t, stream, self.max_samples)
+                return _parse_binary(frames[0], frames[1], rx_t, stream,
+                                     self.max_samples, self._layouts)
             stream = _topic(frames[0])
             payload = frames[1]
         else:
