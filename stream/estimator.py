@@ -47,6 +47,11 @@ _FULL_TURN_DEG: float = 360.0 - 1e-9
 #: First chunk scanned for a sweep end; later chunks double.
 _SCAN_CHUNK: int = 256
 
+#: Fewest and most batches :meth:`RollingPattern.update_many` tries to fold in with one
+#: set of numpy calls.
+_RUN_MIN: int = 8
+_RUN_MAX: int = 256
+
 def _is_real(v: object) -> bool:
     return isinstance(v, numbers.Real) and not isinstance(v, bool)
 
@@ -369,6 +374,126 @@ class RollingPattern:
             self._now_max = now
         else:
             self._last_t[tb] = np.maximum(lt, now)
+
+    def update_many(self, batches: Sequence[SampleBatch], nows: Sequence[float]) -> None:
+        """Fold in several batches in order, batch ``i`` received at ``nows[i]``.
+
+        The result is bit for bit that of calling :meth:`update` on each in turn (a
+        replay feeds thousands of small batches; their numpy work is done in a few
+        calls per run instead of a dozen per batch).  A run of equal-length batches
+        that each stay inside a few bins, move one way (or stay within the reversal
+        hysteresis of the furthest angle) and cross no seam takes the shared path;
+        every other batch goes through :meth:`update`.
+        """
+        n = len(batches)
+        i = 0
+        size = _RUN_MIN  # grows while runs succeed, so a stream that never fits wastes little
+        while i < n:
+            j = self._update_run(batches, nows, i, size) if n - i > 1 else i
+            if j == i:
+                self.update(batches[i], nows[i])
+                j = i + 1
+                size = _RUN_MIN
+            elif j - i == size:
+                size = min(2 * size, _RUN_MAX)
+            i = j
+
+    def _update_run(self, batches: Sequence[SampleBatch], nows: Sequence[float],
+                    start: int, size: int) -> int:
+        """Fold in the longest simple run of batches from ``start`` (see
+        :meth:`update_many`); returns the index after it (``start``: none taken)."""
+        d = self._dir
+        if d == 0 or self._turning or self._k != 0:
+            return start
+        m = len(batches[start])
+        stop = min(len(batches), start + size)
+        end = start + 1
+        while end < stop and len(batches[end]) == m:
+            end += 1
+        if m == 0 or end - start < 2:
+            return start
+        run = batches[start:end]
+        A = np.stack([b.angle_deg for b in run]).astype(np.float64, copy=False)
+        P = np.stack([b.power_db for b in run]).astype(np.float64, copy=False)
+        # Every power finite and far from overflow: then update()'s finiteness test on
+        # the sum passes for each batch too.
+        if not (np.isfinite(P).all() and float(np.abs(P).max()) < 1e300):
+            return start
+        los = A.min(axis=1).tolist()
+        his = A.max(axis=1).tolist()
+        firsts = A[:, 0].tolist()
+        lasts = A[:, -1].tolist()
+        back = (np.less if d > 0 else np.greater)(A[:, 1:], A[:, :-1]).any(axis=1).tolist()
+        inv_w, c0, nb, h = self._inv_w, self._c0, self._nb, self._h
+        ext, e_lo, e_hi, last = self._ext, self._e_lo, self._e_hi, self._last_a
+        i0s: list[int] = []
+        spans: list[int] = []
+        # The per-batch decisions of update(), _unwrap() and _next_boundary(), in order;
+        # the run ends before the first batch that would take another path.
+        for k in range(len(run)):
+            lo, hi, a0 = los[k], his[k], firsts[k]
+            if not (-180.0 <= lo and hi < 180.0):
+                break
+            i0 = int(lo * inv_w + c0)
+            i1 = int(hi * inv_w + c0)
+            if i1 >= nb or i1 - i0 + 1 > _FEW_BINS:
+                break
+            if not (hi - lo <= 180.0 and not abs(a0 - last) > 180.0):
+                break
+            if not max(e_hi, hi) - min(e_lo, lo) < _FULL_TURN_DEG:
+                break
+            if d > 0:
+                if not (lo >= max(ext, hi) - h or (a0 >= ext - h and not back[k])):
+                    break
+                ext = max(ext, hi)
+            else:
+                if not (hi <= min(ext, lo) + h or (a0 <= ext + h and not back[k])):
+                    break
+                ext = min(ext, lo)
+            e_lo, e_hi = min(e_lo, lo), max(e_hi, hi)
+            last = lasts[k]
+            i0s.append(i0)
+            spans.append(i1 - i0 + 1)
+        e = len(i0s)
+        if e == 0:
+            return start
+        lin = P[:e] * _DB_TO_NEPER
+        np.exp(lin, out=lin)
+        x = A[:e] * inv_w
+        x += c0
+        idx = x.astype(np.intp)
+        # Window-relative bin per batch and each sample's offset in its bin, as update()
+        # computes them; then a key per (batch, bin): bincount adds each key's weights in
+        # sample order, so every sum is update()'s own.
+        i0a = np.asarray(i0s, dtype=np.intp)[:, None]
+        idx -= i0a
+        x -= idx
+        x -= i0a + 0.5
+        idx += (np.arange(e, dtype=np.intp) * _FEW_BINS)[:, None]
+        keys = idx.reshape(-1)
+        size = e * _FEW_BINS
+        s_all = np.bincount(keys, weights=lin.reshape(-1), minlength=size)
+        c_all = np.bincount(keys, minlength=size)
+        so_all = np.bincount(keys, weights=x.reshape(-1), minlength=size)
+        # The bins' offset sums, batch after batch: ufunc.at adds in index order, as the
+        # per-batch window additions do (bins of a window no sample reached add zero).
+        used = np.flatnonzero(c_all)
+        gbin = used % _FEW_BINS + np.asarray(i0s, dtype=np.intp)[used // _FEW_BINS]
+        so_used = so_all[used]
+        np.add.at(self._off_sum, gbin, so_used)
+        np.add.at(self._off_cnt, gbin, c_all[used].astype(np.float64))
+        np.add.at(self._sw_off, gbin, so_used)
+        sums = s_all.tolist()
+        counts = c_all.tolist()
+        few = self._update_few
+        for k in range(e):
+            self._samples += m
+            self._sw_lo = min(self._sw_lo, los[k])
+            self._sw_hi = max(self._sw_hi, his[k])
+            o = k * _FEW_BINS
+            few(i0s[k], sums[o:o + spans[k]], counts[o:o + spans[k]], float(nows[start + k]))
+        self._ext, self._e_lo, self._e_hi, self._last_a = ext, e_lo, e_hi, last
+        return start + e
 
     def _update_few(self, i0: int, sums: list[float], counts: list[int], now: float) -> None:
         """Scalar twin of the vector path for a batch within a few bins, no sweep end."""

@@ -61,6 +61,23 @@ class Monitor:
         for sink in self.batch_sinks:
             sink(batch)
 
+    def ingest_many(self, batches: list[SampleBatch]) -> None:
+        """:meth:`ingest` each batch in order (a replay's run of rows between readouts):
+        the same state afterwards, with the estimator's per-call cost shared when no
+        batch sink needs to see each batch as it is folded in."""
+        update_many = getattr(self.estimator, "update_many", None)
+        if self.batch_sinks or update_many is None:
+            for b in batches:
+                self.ingest(b)
+            return
+        batches = [b for b in batches if len(b)]
+        if not batches:
+            return
+        update_many(batches, [b.rx_t for b in batches])
+        last = batches[-1]
+        self.calibrated = last.calibrated
+        self.last_sample_t = last.rx_t
+
     # -- user actions (each becomes an event) ----------------------------------------
     def emit(self, event: Event) -> Event:
         """Send an event to the sinks now and attach it to the next tick (sources use this

@@ -156,3 +156,66 @@ def test_helpers_measure_something() -> None:
     tri = _triangle(1000)
     assert tri.min() == -60.0 and tri.max() == pytest.approx(60.0, abs=0.2)
     assert np.argmax(tri) == pytest.approx(500, abs=1)
+
+
+def _streams() -> dict[str, list[SampleBatch]]:
+    """Invented streams that exercise every path of the estimator: dense sweeps (the
+    shared path), sweeps facing the +-180 seam, a turning mount, junk angles, NaN and
+    out-of-range values, float32 arrays, uneven batch sizes."""
+    rng = np.random.default_rng(11)
+    model = ArrayModel(n_elements=6, spacing_wl=0.5, element_exp=1.0)
+
+    def cut(ang: np.ndarray, sizes: tuple[int, ...] = (1000,)) -> list[SampleBatch]:
+        pw = model.power_db(ang) - 40.0 + rng.normal(0.0, 0.3, ang.size)
+        out, i, k = [], 0, 0
+        while i < ang.size:
+            n = sizes[k % len(sizes)]
+            out.append(SampleBatch.from_arrays(ang[i:i + n], pw[i:i + n]))
+            i += n
+            k += 1
+        return out
+
+    tri = np.concatenate([np.linspace(-60, 60, 60_000), np.linspace(60, -60, 60_000)])
+    seam = (np.concatenate([np.linspace(150, 210, 30_000),
+                            np.linspace(210, 150, 30_000)]) + 180.0) % 360.0 - 180.0
+    turn = (np.arange(200_000) * 0.004 + 180.0) % 360.0 - 180.0
+    junk = rng.uniform(-200.0, 400.0, 20_000)
+    dense = cut(np.tile(tri, 2))
+    bad = cut(tri.copy())
+    bad[7].power_db[3] = np.nan
+    bad[9].angle_deg[5] = 250.0
+    f32 = [SampleBatch(b.t, b.angle_deg.astype(np.float32), b.power_db.astype(np.float32))
+           for b in cut(tri)]
+    return {"dense": dense, "seam": cut(seam), "turning": cut(turn, (700, 1300, 1000)),
+            "junk": cut(junk, (100, 1000)), "bad": bad, "float32": f32}
+
+
+@pytest.mark.parametrize("cfg", [EstimatorConfig(), EstimatorConfig(bin_deg=0.25),
+                                 EstimatorConfig(averaging="sweeps", sweeps_k=2)],
+                         ids=["ema-1deg", "ema-0.25deg", "sweeps"])
+def test_update_many_gives_the_bits_of_update_one_by_one(cfg) -> None:
+    """The replay speed-up (``RollingPattern.update_many``) must not change one bit of
+    the estimator's state: replay stays exactly equal to live."""
+    for name, batches in _streams().items():
+        one, many = RollingPattern(cfg), RollingPattern(cfg)
+        nows = [1.0e9 + 0.001 * i for i in range(len(batches))]
+        nows[20:30] = [nows[20]] * 10  # several batches at one receive time
+        i = 0
+        for step in (13, 5, 31, 2, 64, 97, 256) * 100:  # compare after each call
+            if i >= len(batches):
+                break
+            for b, now in zip(batches[i:i + step], nows[i:i + step], strict=True):
+                one.update(b, now)
+            many.update_many(batches[i:i + step], nows[i:i + step])
+            i += step
+            for attr, a in vars(one).items():
+                b = vars(many)[attr]
+                if isinstance(a, np.ndarray):
+                    assert np.array_equal(a, b, equal_nan=True), (name, i, attr)
+                elif isinstance(a, float | int):
+                    assert a == b or (a != a and b != b), (name, i, attr)
+        assert repr(one.sweeps) == repr(many.sweeps), name
+        assert (one.samples, one.sweep_count) == (many.samples, many.sweep_count), name
+        s1, s2 = one.snapshot(nows[-1]), many.snapshot(nows[-1])
+        assert np.array_equal(s1.angle_deg, s2.angle_deg), name
+        assert np.array_equal(s1.power_db, s2.power_db), name
