@@ -387,15 +387,28 @@ class RollingPattern:
         """
         n = len(batches)
         i = 0
-        size = _RUN_MIN  # grows while runs succeed, so a stream that never fits wastes little
+        size = _RUN_MIN  # grows while runs succeed
+        skip = 0  # after a failed try, the next batches go one by one (doubling each time)
+        wait = 0
         while i < n:
-            j = self._update_run(batches, nows, i, size) if n - i > 1 else i
+            j = i
+            tried = False
+            if wait > 0:
+                wait -= 1
+            elif n - i > 1:
+                j = self._update_run(batches, nows, i, size)
+                tried = True
             if j == i:
+                if tried:  # a failed try: back off
+                    skip = min(2 * skip + 1, _RUN_MAX)
+                    wait = skip
+                    size = _RUN_MIN
                 self.update(batches[i], nows[i])
                 j = i + 1
-                size = _RUN_MIN
-            elif j - i == size:
-                size = min(2 * size, _RUN_MAX)
+            else:
+                skip = 0
+                if j - i == size:
+                    size = min(2 * size, _RUN_MAX)
             i = j
 
     def _update_run(self, batches: Sequence[SampleBatch], nows: Sequence[float],
@@ -413,8 +426,11 @@ class RollingPattern:
         if m == 0 or end - start < 2:
             return start
         run = batches[start:end]
-        A = np.stack([b.angle_deg for b in run]).astype(np.float64, copy=False)
-        P = np.stack([b.power_db for b in run]).astype(np.float64, copy=False)
+        n_run = len(run)
+        A = np.concatenate([b.angle_deg for b in run]).astype(np.float64, copy=False)
+        A = A.reshape(n_run, m)
+        P = np.concatenate([b.power_db for b in run]).astype(np.float64, copy=False)
+        P = P.reshape(n_run, m)
         # Every power finite and far from overflow: then update()'s finiteness test on
         # the sum passes for each batch too.
         if not (np.isfinite(P).all() and float(np.abs(P).max()) < 1e300):
@@ -430,7 +446,7 @@ class RollingPattern:
         spans: list[int] = []
         # The per-batch decisions of update(), _unwrap() and _next_boundary(), in order;
         # the run ends before the first batch that would take another path.
-        for k in range(len(run)):
+        for k in range(n_run):
             lo, hi, a0 = los[k], his[k], firsts[k]
             if not (-180.0 <= lo and hi < 180.0):
                 break
