@@ -341,16 +341,16 @@ class RollingPattern:
         u, u_lo, u_hi = self._unwrap(a, lo, hi)
         b = self._next_boundary(u, 0, u_lo, u_hi)
         if b < 0:
-            self._off_sum[win] += so
-            self._off_cnt[win] += c
-            self._sw_off[win] += so
             self._sw_lo = min(self._sw_lo, u_lo)
             self._sw_hi = max(self._sw_hi, u_hi)
             if span <= _FEW_BINS:
                 # A batch inside a few bins (the usual case at high sample rates): plain
                 # Python floats per touched bin beat a dozen small-array numpy calls.
-                self._update_few(i0, s.tolist(), c.tolist(), now)
+                self._update_few(i0, s.tolist(), c.tolist(), now, so.tolist())
                 return
+            self._off_sum[win] += so
+            self._off_cnt[win] += c
+            self._sw_off[win] += so
             self._sw_sum[win] += s
             self._sw_cnt[win] += c
         else:
@@ -511,8 +511,11 @@ class RollingPattern:
         self._ext, self._e_lo, self._e_hi, self._last_a = ext, e_lo, e_hi, last
         return start + e
 
-    def _update_few(self, i0: int, sums: list[float], counts: list[int], now: float) -> None:
-        """Scalar twin of the vector path for a batch within a few bins, no sweep end."""
+    def _update_few(self, i0: int, sums: list[float], counts: list[int], now: float,
+                    offs: list[float] | None = None) -> None:
+        """Scalar twin of the vector path for a batch within a few bins, no sweep end
+        (with ``offs``, the bins' offset sums too; a bin no sample reached would only add
+        zero)."""
         sw_sum, sw_cnt, last_t = self._sw_sum, self._sw_cnt, self._last_t
         ema = self._ema
         later = now > self._now_max
@@ -522,6 +525,11 @@ class RollingPattern:
             if not cj:
                 continue
             b = i0 + j
+            if offs is not None:
+                oj = offs[j]
+                self._off_sum[b] += oj
+                self._off_cnt[b] += cj
+                self._sw_off[b] += oj
             sj = sums[j]
             sw_sum[b] += sj
             sw_cnt[b] += cj

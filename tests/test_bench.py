@@ -131,12 +131,13 @@ def test_naive_estimator_does_the_same_job_as_the_real_one() -> None:
         naive.update(ang[i:i + 400], pw[i:i + 400], now)
         real.update(SampleBatch.from_arrays(ang[i:i + 400], pw[i:i + 400]), now)
     snap = real.snapshot(now)
-    got = {int(round(a + 180.0)): p for a, p in zip(snap.angle_deg, snap.power_db,
-                                                      strict=True)}
-    want = {b: 10 * math.log10(v[0]) for b, v in naive.bins.items()}
+    got = {int(round(a + 180.0)): (a, p) for a, p in zip(snap.angle_deg, snap.power_db,
+                                                           strict=True)}
+    want = {b: (naive.angle_deg(b), 10 * math.log10(v[0])) for b, v in naive.bins.items()}
     assert set(got) == set(want)
     for b in want:
-        assert got[b] == pytest.approx(want[b], abs=1e-9)
+        assert got[b][0] == pytest.approx(want[b][0], abs=1e-9)  # mean angle in the bin
+        assert got[b][1] == pytest.approx(want[b][1], abs=1e-9)
     assert naive.sweeps == real.sweep_count
 
 

@@ -21,10 +21,11 @@ from tui.bench.figures import median
 class NaiveRollingPattern:
     """The same job written the obvious way: a dict of bins and a loop per sample.
 
-    Per batch: each sample is wrapped, binned and summed into a dict; then every touched
-    bin gets ``P += (1 - exp(-dt/tau)) * (x - P)``; the sweep rule (reversal by more than
-    the hysteresis from the furthest angle) is followed sample by sample, with a per-sweep
-    dict of bins.  Only for the speed-up ratio."""
+    Per batch: each sample is wrapped, binned and summed into a dict, with where in its
+    bin it fell (each bin is reported at its samples' mean angle, as the real estimator
+    does); then every touched bin gets ``P += (1 - exp(-dt/tau)) * (x - P)``; the sweep
+    rule (reversal by more than the hysteresis from the furthest angle) is followed
+    sample by sample, with a per-sweep dict of bins.  Only for the speed-up ratio."""
 
     def __init__(self, bin_deg: float = 1.0, tau_s: float = 3.0) -> None:
         self.nb = int(round(360.0 / bin_deg))
@@ -32,7 +33,8 @@ class NaiveRollingPattern:
         self.tau = tau_s
         self.h = max(0.5 * self.w, MIN_REVERSAL_DEG)
         self.bins: dict[int, list[float]] = {}     # bin -> [power, last_t]
-        self.sweep: dict[int, list[float]] = {}    # bin -> [sum, count]
+        self.offsets: dict[int, list[float]] = {}  # bin -> [offset sum, count]
+        self.sweep: dict[int, list[float]] = {}    # bin -> [sum, count, offset sum]
         self.direction = 0
         self.ext: float | None = None
         self.sweeps = 0
@@ -41,15 +43,22 @@ class NaiveRollingPattern:
         acc: dict[int, list[float]] = {}
         for a, p in zip(angle_deg.tolist(), power_db.tolist(), strict=True):
             a = (a + 180.0) % 360.0 - 180.0
-            b = int((a + 180.0) / self.w + 0.5) % self.nb
+            x = (a + 180.0) / self.w + 0.5
+            k = int(x)
+            off = x - k - 0.5  # where in the bin, -1/2 .. 1/2
+            b = k % self.nb
             lin = 10.0 ** (p / 10.0)
             self._follow(a)
             cell = acc.setdefault(b, [0.0, 0])
             cell[0] += lin
             cell[1] += 1
-            sw = self.sweep.setdefault(b, [0.0, 0])
+            o = self.offsets.setdefault(b, [0.0, 0])
+            o[0] += off
+            o[1] += 1
+            sw = self.sweep.setdefault(b, [0.0, 0, 0.0])
             sw[0] += lin
             sw[1] += 1
+            sw[2] += off
         for b, (s, c) in acc.items():
             x = s / c
             cur = self.bins.get(b)
@@ -59,6 +68,11 @@ class NaiveRollingPattern:
                 alpha = 1.0 - math.exp(-(now - cur[1]) / self.tau)
                 cur[0] += alpha * (x - cur[0])
                 cur[1] = now
+
+    def angle_deg(self, b: int) -> float:
+        """Bin ``b`` reported at its samples' mean angle."""
+        o_sum, n = self.offsets[b]
+        return -180.0 + b * self.w + o_sum / n * self.w
 
     def _follow(self, a: float) -> None:
         if self.ext is None:
