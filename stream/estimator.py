@@ -321,21 +321,12 @@ class RollingPattern:
         if i0:
             idx -= i0
         span = i1 - i0 + 1
-        s = np.bincount(idx, weights=lin, minlength=span)
-        c = np.bincount(idx, minlength=span)
         # Where in its bin each sample fell (bins of offset, -1/2 .. 1/2): a bin's angle
         # is its samples' mean angle, not its centre, so a steering grid that does not
         # line up with the bins (0.5-degree steps in 1-degree bins) gives no bias.
         x -= idx
         x -= i0 + 0.5
-        so = np.bincount(idx, weights=x, minlength=span)
-        if seam:
-            s[0] += s[nb]
-            c[0] += c[nb]
-            so[0] += so[nb]
-            s = s[:nb]
-            c = c[:nb]
-            so = so[:nb]
+        s, c, so = self._bin_sums(idx, lin, x, span, seam)
         win = slice(i0, i0 + s.shape[0])
 
         u, u_lo, u_hi = self._unwrap(a, lo, hi)
@@ -576,6 +567,17 @@ class RollingPattern:
         self._sw_lo = min(self._sw_lo, float(u.min()))
         self._sw_hi = max(self._sw_hi, float(u.max()))
         span = win.stop - win.start + (1 if seam else 0)
+        s, c, so = self._bin_sums(idx, lin, off, span, seam)
+        self._sw_sum[win] += s
+        self._sw_cnt[win] += c
+        self._off_sum[win] += so
+        self._off_cnt[win] += c
+        self._sw_off[win] += so
+
+    def _bin_sums(self, idx: np.ndarray, lin: np.ndarray, off: np.ndarray, span: int,
+                  seam: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per-bin sums of linear power, counts and offsets over a window of ``span``
+        bins; across the seam, index n_bins (just below +180) is folded onto bin 0."""
         s = np.bincount(idx, weights=lin, minlength=span)
         c = np.bincount(idx, minlength=span)
         so = np.bincount(idx, weights=off, minlength=span)
@@ -584,14 +586,8 @@ class RollingPattern:
             s[0] += s[nb]
             c[0] += c[nb]
             so[0] += so[nb]
-            s = s[:nb]
-            c = c[:nb]
-            so = so[:nb]
-        self._sw_sum[win] += s
-        self._sw_cnt[win] += c
-        self._off_sum[win] += so
-        self._off_cnt[win] += c
-        self._sw_off[win] += so
+            s, c, so = s[:nb], c[:nb], so[:nb]
+        return s, c, so
 
     def _unwrap(self, a: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, float, float]:
         """The batch on the continuous angle axis ``u = a + 360 k``, where ``k`` counts the

@@ -316,23 +316,21 @@ class ZmqSource:
         """Close the sockets with linger 0 and terminate the context (never hangs)."""
         if self._closed:
             return
-        self._closed = True
-        asock, s, mon = self._asock, self._sock, self._mon
-        self._asock = self._sock = self._mon = None
-        if asock is not None:
-            asock.close(linger=0)
-        self._close_sockets(s, mon)
-        await asyncio.sleep(0)
+        self._close_all_sockets()
+        await asyncio.sleep(0)  # let the loop drop its watch on the closed sockets
         self._ctx.term()
 
     def close(self) -> None:
         """Synchronous close for code outside an event loop."""
         if self._closed:
             return
+        self._close_all_sockets()
+        self._ctx.term()
+
+    def _close_all_sockets(self) -> None:
         self._closed = True
         asock, s, mon = self._asock, self._sock, self._mon
         self._asock = self._sock = self._mon = None
         if asock is not None:
             asock.close(linger=0)
         self._close_sockets(s, mon)
-        self._ctx.term()
