@@ -352,13 +352,7 @@ async def sustained(pub: Publisher, endpoint: str, kind: str, msgs_per_s: float,
     est = monitor.estimator
     c0 = time.process_time()
     s0 = est.samples
-    t0 = time.perf_counter()
-    end = t0 + seconds
-    while time.perf_counter() < end:
-        await asyncio.sleep(0.1)
-        if rss is not None:
-            rss.sample()
-    dt = time.perf_counter() - t0
+    dt = await _watch(seconds, rss)
     c1 = time.process_time()
     s1 = est.samples
     sent = pub.command("idle")
@@ -370,6 +364,17 @@ async def sustained(pub: Publisher, endpoint: str, kind: str, msgs_per_s: float,
             "cpu_pct": (c1 - c0) / dt * 100.0, "sent": float(sent),
             "received": float(received), "lost": float(max(sent - received, 0)),
             "rejected": float(sum(src.decoder.rejected.values()))}
+
+
+async def _watch(seconds: float, rss: RssSampler | None) -> float:
+    """Let the pipeline run for ``seconds``, sampling the resident size; the wall time."""
+    t0 = time.perf_counter()
+    end = t0 + seconds
+    while time.perf_counter() < end:
+        await asyncio.sleep(0.1)
+        if rss is not None:
+            rss.sample()
+    return time.perf_counter() - t0
 
 
 async def latency(pub: Publisher, endpoint: str, msgs_per_s: float,
@@ -392,14 +397,8 @@ async def latency(pub: Publisher, endpoint: str, msgs_per_s: float,
     await asyncio.sleep(0.3)  # warm-up
     recording = True
     s0 = monitor.estimator.samples
-    t0 = time.perf_counter()
-    end = t0 + seconds
-    while time.perf_counter() < end:
-        await asyncio.sleep(0.1)
-        if rss is not None:
-            rss.sample()
+    dt = await _watch(seconds, rss)
     recording = False
-    dt = time.perf_counter() - t0
     s1 = monitor.estimator.samples
     sent = pub.command("idle")
     stop.set()
