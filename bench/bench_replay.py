@@ -37,14 +37,14 @@ def main() -> int:
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory(prefix="lobewatch-bench-") as d:
-        path = os.path.join(d, "bench.lws")
+        path = os.path.join(d, "bench.lwsession")
         t0 = time.perf_counter()
         generate(path, args.samples)
         gen_s = time.perf_counter() - t0
         r = run_replay(path, args.runs)
         size_mb = os.path.getsize(path) / 1e6
-        paced = record_paced(os.path.join(d, "paced.lws"))
-        unpaced = record_unpaced(os.path.join(d, "unpaced.lws"))
+        paced = record_paced(os.path.join(d, "paced.lwsession"))
+        unpaced = record_unpaced(os.path.join(d, "unpaced.lwsession"))
     rep, raw = r["replay_sps"], r["raw_read_sps"]
     rd, pipe = r["read_path_sps"], r["pipeline_only_sps"]
     res = {

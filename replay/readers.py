@@ -11,7 +11,7 @@ Formats (chosen by extension, see :func:`read_sweep`):
 * JSON Lines (``.jsonl``, ``.ndjson``): one wire-format message per line, single
   sample or batch (``angle_deg``, ``power_dbm`` | ``power_db``, ``t`` or
   ``t0`` + ``dt``, ``seq``).
-* Session files (``.lws``): every recorded sample, through ``replay.session``.
+* Session files (``.lwsession``): every recorded sample, through ``replay.session``.
 
 Every problem raises :class:`stream.errors.InputFileError` naming the file, the line
 and what to do; no row is dropped silently and the input is only ever opened for
@@ -34,7 +34,7 @@ from stream.wire import decode_json_object
 
 CSV_EXTENSIONS: tuple[str, ...] = (".csv", ".tsv", ".txt")
 JSONL_EXTENSIONS: tuple[str, ...] = (".jsonl", ".ndjson")
-SESSION_EXTENSIONS: tuple[str, ...] = (".lws",)
+SESSION_EXTENSIONS: tuple[str, ...] = (".lwsession",)
 
 #: Angles accepted in a sweep file, degrees (one turn either way of zero).
 ANGLE_LIMIT_DEG: float = 360.0
@@ -56,7 +56,7 @@ def read_sweep(path: str | os.PathLike[str]) -> SampleBatch:
         except ModuleNotFoundError as exc:
             if exc.name != "replay.session":
                 raise
-            raise UserError(f"{p}: session files (.lws) cannot be read: session support is "
+            raise UserError(f"{p}: session files (.lwsession) cannot be read: session support is "
                             "missing from this installation; export the session to CSV "
                             "or JSON Lines first") from None
         return session.read_all_samples(p)

@@ -25,7 +25,7 @@ _STOP = object()
 
 
 class Recorder:
-    """Writes batches, ticks and events of a monitor into a new ``.lws`` file.
+    """Writes batches, ticks and events of a monitor into a new ``.lwsession`` file.
 
     ``threaded=False`` writes from the sink calls themselves (deterministic, for tests
     and for tools that record without an event loop).  Sink calls never raise: a

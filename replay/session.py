@@ -1,4 +1,4 @@
-"""Session files (``.lws``): one SQLite database per recorded or imported session.
+"""Session files (``.lwsession``): one SQLite database per recorded or imported session.
 
 Why SQLite: a committed transaction survives a killed process (WAL journal), the file
 is self-describing and readable with nothing but Python's ``sqlite3`` and ``numpy``,
@@ -37,7 +37,7 @@ APPLICATION_ID: int = 0x4C625773
 #: Session format version, stored as ``PRAGMA user_version`` and in ``meta``.
 FORMAT_VERSION: int = 1
 #: File name extension of session files.
-SUFFIX: str = ".lws"
+SUFFIX: str = ".lwsession"
 
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 
@@ -479,7 +479,7 @@ class SessionReader:
             if os.path.exists(p + "-wal") and ("unable to open" in str(exc)
                                                or "readonly" in str(exc)):
                 raise InputFileError(p, f"cannot read the unsaved tail in {p}-wal ({exc}); "
-                                     "copy the .lws file together with its -wal file into "
+                                     "copy the .lwsession file together with its -wal file into "
                                      "a writable folder and open the copy") from None
             raise _damaged(p, str(exc)) from None
         except sqlite3.DatabaseError as exc:

@@ -69,7 +69,7 @@ def test_csv_import_export_round_trip_is_exact(tmp_path, with_t, power):
     src = tmp_path / "in.csv"
     write_csv(src, a, p, t if with_t else None, power)
     before = digest(src)
-    s = tmp_path / "s.lws"
+    s = tmp_path / "s.lwsession"
     summary = import_file(src, s)
     assert summary.samples == len(a) and summary.synthetic_t is (not with_t)
     out = tmp_path / "out.csv"
@@ -87,7 +87,7 @@ def test_csv_import_export_round_trip_is_exact(tmp_path, with_t, power):
     assert rows[0][0] == "0.1" and rows[1][0] == repr(-1 / 3)
     assert all(float(r[0]) == x for r, x in zip(rows, a, strict=True))
     # import -> export of the export gives the same bytes again
-    s2 = tmp_path / "s2.lws"
+    s2 = tmp_path / "s2.lwsession"
     import_file(out, s2)
     out2 = tmp_path / "out2.csv"
     export_samples(s2, out2)
@@ -98,7 +98,7 @@ def test_synthetic_times_and_batching(tmp_path):
     a, p, _ = awkward_sweep(2345)
     src = tmp_path / "in.csv"
     write_csv(src, a, p)
-    s = tmp_path / "s.lws"
+    s = tmp_path / "s.lwsession"
     import_file(src, s)
     with SessionReader(s) as r:
         bs = list(r.iter_batches())
@@ -124,7 +124,7 @@ def test_jsonl_import_matches_reader(tmp_path):
         {"angle_deg": 12.25, "power_dbm": -31.2, "t": 1767225600.125, "seq": 2},
     ]
     src.write_text("".join(json.dumps(x) + "\n" for x in lines))
-    s = tmp_path / "s.lws"
+    s = tmp_path / "s.lwsession"
     import_file(src, s)
     out = tmp_path / "out.csv"
     export_samples(s, out)
@@ -135,20 +135,20 @@ def test_jsonl_import_matches_reader(tmp_path):
 
 def test_report_and_replay_read_imported_sessions(tmp_path, capsys):
     src = ROOT / "examples" / "sweep_4col_5deg.csv"
-    s = tmp_path / "four.lws"
+    s = tmp_path / "four.lwsession"
     assert main(["import", str(src), "-o", str(s)]) == 0
     capsys.readouterr()
     assert main(["report", str(src), "--json"]) == 0
     from_csv = json.loads(capsys.readouterr().out)
     assert main(["report", str(s), "--json"]) == 0
-    from_lws = json.loads(capsys.readouterr().out)
+    from_session = json.loads(capsys.readouterr().out)
 
     def metrics(doc):  # the report's per-file objects, without the file name
         items = doc if isinstance(doc, list) else doc.get("files", [doc])
         return [{k: v for k, v in d.items() if k not in ("file", "path", "name", "source")}
                 for d in items]
 
-    assert metrics(from_lws) == metrics(from_csv)
+    assert metrics(from_session) == metrics(from_csv)
     buf = io.StringIO()
     with redirect_stdout(buf):
         assert main(["replay", str(s), "--headless", "--interval", "0.01"]) == 0
@@ -161,7 +161,7 @@ def test_report_and_replay_read_imported_sessions(tmp_path, capsys):
 
 
 def test_export_events(tmp_path):
-    s = tmp_path / "e.lws"
+    s = tmp_path / "e.lwsession"
     evs = [Event(10.0, "marker", {"text": "bolt, torqued \"ok\""}),
            Event(10.5, "alarm", {"rule": "drift", "state": "raised", "severity": "major",
                                  "value": 0.30000000000000004, "threshold": 1.0,
@@ -184,7 +184,7 @@ def test_outputs_are_never_clobbered_and_inputs_never_written(tmp_path, capsys):
     a, p, t = awkward_sweep(50)
     src = tmp_path / "in.csv"
     write_csv(src, a, p, t)
-    s = tmp_path / "s.lws"
+    s = tmp_path / "s.lwsession"
     import_file(src, s)
     ds, dsrc = digest(s), digest(src)
     with pytest.raises(UserError, match="exists"):
@@ -199,10 +199,10 @@ def test_outputs_are_never_clobbered_and_inputs_never_written(tmp_path, capsys):
     # bad input through the CLI: one line, exit 1, no session left behind
     bad = tmp_path / "bad.csv"
     bad.write_text("angle_deg,power_dbm\n0,-30\n5,oops\n")
-    out = tmp_path / "bad.lws"
+    out = tmp_path / "bad.lwsession"
     assert main(["import", str(bad), "-o", str(out)]) == 1
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "bad.csv:3" in err and "Traceback" not in err
     assert not out.exists()
     assert [f for f in os.listdir(tmp_path) if f.startswith(".lobewatch")] == []
-    assert main(["export", str(s), "-o", str(tmp_path / "x.lws")]) == 1
+    assert main(["export", str(s), "-o", str(tmp_path / "x.lwsession")]) == 1

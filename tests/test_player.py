@@ -99,7 +99,7 @@ def replay_records(path, **kw):
 
 @pytest.fixture(scope="module")
 def live_session(tmp_path_factory):
-    path = tmp_path_factory.mktemp("s") / "live.lws"
+    path = tmp_path_factory.mktemp("s") / "live.lwsession"
     records, events = record_live(path)
     return path, records, events
 
@@ -169,7 +169,7 @@ def test_next_and_prev_event(live_session):
 
 
 def test_grid_ticks_for_session_without_ticks(tmp_path):
-    path = tmp_path / "imp.lws"
+    path = tmp_path / "imp.lwsession"
     with SessionWriter(path, {"kind": "import"}) as w:
         for k in range(25):  # 25 batches at 0.04 s spacing: span 0.96 s
             w.write_batch(SampleBatch.from_arrays(np.linspace(-10, 10, 5), -np.ones(5) * 3,
@@ -265,7 +265,7 @@ def test_cli_live_record_then_headless_replay_prints_the_live_lines(tmp_path):
     env = dict(os.environ, PYTHONPATH=str(root))
     cli = [sys.executable, "-m", "tui.cli"]
     endpoint = f"ipc://{tmp_path}/b.sock"
-    rec = tmp_path / "site.lws"
+    rec = tmp_path / "site.lwsession"
     pub = subprocess.Popen(cli + ["synth", "--endpoint", endpoint, "--rate-sps", "20000",
                                   "--seed", "4", "--scenario", "steady", "--duration", "30"],
                            cwd=root, env=env, stdout=subprocess.DEVNULL,
@@ -321,7 +321,7 @@ def test_prefetched_and_plain_reading_agree_and_errors_arrive_in_order(tmp_path,
     assert replay_records(path, prefetch=False) == replay_records(path, prefetch=True)
     # damage one batch in a copy: every batch before it is played, then one clear error
     from stream.errors import InputFileError
-    bad = tmp_path / "bad.lws"
+    bad = tmp_path / "bad.lwsession"
     data = bytearray(path.read_bytes())
     with SessionReader(path) as r:
         victim = list(r.iter_batches())[300]

@@ -204,9 +204,9 @@ def test_dispatch_by_extension_and_missing_files(tmp_path: Path) -> None:
 
 def test_session_files_go_to_replay_session(tmp_path: Path,
                                             monkeypatch: pytest.MonkeyPatch) -> None:
-    """.lws is handed to replay.session.read_all_samples; without that module the
+    """.lwsession is handed to replay.session.read_all_samples; without that module the
     error says session support is missing."""
-    p = tmp_path / "rec.lws"
+    p = tmp_path / "rec.lwsession"
     p.write_bytes(b"")
     seen = []
     fake = types.ModuleType("replay.session")

@@ -121,7 +121,7 @@ def test_kill_minus_nine_loses_at_most_a_second(publisher, tmp_path):
         for j in range(2):
             startup = (2 * round_ + j) % 4 == 0
             delay = rng.uniform(0.05, 1.0) if startup else rng.uniform(1.05, 2.5)
-            runs.append(_Run(publisher, tmp_path / f"rec{round_}_{j}.lws", startup, delay))
+            runs.append(_Run(publisher, tmp_path / f"rec{round_}_{j}.lwsession", startup, delay))
         deadline = time.monotonic() + 30
         while any(r.killed_at is None for r in runs):
             assert time.monotonic() < deadline, "recorder never produced a readout"
@@ -184,7 +184,7 @@ def test_commits_follow_recorded_time_not_the_wall_clock(tmp_path):
     rows without the recorder being closed."""
     from replay.recorder import Recorder
     m = _Sinks()
-    path = tmp_path / "c.lws"
+    path = tmp_path / "c.lwsession"
     rec = Recorder(path, {}, threaded=False, commit_interval_s=0.5).attach(m)
 
     def stored() -> int:
@@ -207,7 +207,7 @@ def test_write_failure_stops_recording_without_raising_into_the_pipeline(tmp_pat
     from replay.recorder import Recorder
     from stream.errors import UserError
     m = _Sinks()
-    rec = Recorder(tmp_path / "f.lws", {}, threaded=True, commit_interval_s=0.5).attach(m)
+    rec = Recorder(tmp_path / "f.lwsession", {}, threaded=True, commit_interval_s=0.5).attach(m)
 
     def broken() -> None:
         raise UserError("disk full (simulated)")
@@ -228,7 +228,7 @@ def test_reference_trace_is_stored_with_its_event(tmp_path):
     from stream.beam import BeamMetrics
     from stream.tick import Event, Reference
     m = _Sinks()
-    path = tmp_path / "r.lws"
+    path = tmp_path / "r.lwsession"
     rec = Recorder(path, {}, threaded=False).attach(m)
     m.reference = Reference(5.0, np.array([-1.0, 0.0, 1.0]), np.array([-3.0, 0.0, -3.0]),
                             BeamMetrics(peak_angle_deg=0.0, hpbw_deg=2.0))

@@ -55,7 +55,7 @@ def test_no_machine_paths_in_tracked_files() -> None:
     hits = []
     for name in files:
         path = ROOT / name
-        if path.suffix in {".svg", ".png", ".lws"} or not path.is_file():
+        if path.suffix in {".svg", ".png", ".lwsession"} or not path.is_file():
             continue
         try:
             text = path.read_text(encoding="utf-8")

@@ -57,7 +57,7 @@ def digest(path) -> tuple[str, int]:
 
 
 def test_round_trip_is_exact_and_in_recorded_order(tmp_path):
-    p = write_session(tmp_path / "a.lws")
+    p = write_session(tmp_path / "a.lwsession")
     with SessionReader(p) as r:
         assert r.meta["format_version"] == FORMAT_VERSION and r.meta["notes"] == "invented"
         items = list(r.iter_items())
@@ -79,7 +79,7 @@ def test_round_trip_is_exact_and_in_recorded_order(tmp_path):
 
 def test_plain_sqlite_and_numpy_read_samples(tmp_path):
     """What docs/session-format.md tells a user to do, with nothing but sqlite3+numpy."""
-    p = write_session(tmp_path / "a.lws")
+    p = write_session(tmp_path / "a.lwsession")
     con = sqlite3.connect(f"file:{p}?mode=ro", uri=True)
     rows = con.execute("SELECT t, angle_deg, power_db FROM batches ORDER BY id").fetchall()
     angle = np.concatenate([np.frombuffer(r[1], dtype="<f8") for r in rows])
@@ -90,7 +90,7 @@ def test_plain_sqlite_and_numpy_read_samples(tmp_path):
 
 
 def test_refuses_to_overwrite_unless_forced(tmp_path):
-    p = write_session(tmp_path / "a.lws")
+    p = write_session(tmp_path / "a.lwsession")
     before = digest(p)
     with pytest.raises(UserError, match="exists.*--force"):
         SessionWriter(p, {})
@@ -101,7 +101,7 @@ def test_refuses_to_overwrite_unless_forced(tmp_path):
 
 
 def test_reading_never_modifies_the_file(tmp_path):
-    p = write_session(tmp_path / "a.lws")
+    p = write_session(tmp_path / "a.lwsession")
     before = digest(p)
     names = sorted(os.listdir(tmp_path))
     with SessionReader(p) as r:
@@ -114,7 +114,7 @@ def test_reading_never_modifies_the_file(tmp_path):
 def test_killed_writer_leaves_a_readable_file_and_reader_keeps_it_intact(tmp_path):
     """A writer killed after a commit: the rows sit in the -wal file; the reader sees
     them without touching the session file."""
-    p = tmp_path / "k.lws"
+    p = tmp_path / "k.lwsession"
     code = (
         "import os, numpy as np;"
         "from replay.session import SessionWriter;"
@@ -137,8 +137,8 @@ def test_killed_writer_leaves_a_readable_file_and_reader_keeps_it_intact(tmp_pat
 @pytest.mark.parametrize("case", ["missing", "empty", "text", "other_sqlite", "newer",
                                   "truncated", "flipped_blob", "header_garbage"])
 def test_bad_files_give_one_line_errors(tmp_path, case, capsys):
-    good = write_session(tmp_path / "good.lws")
-    p = tmp_path / "bad.lws"
+    good = write_session(tmp_path / "good.lwsession")
+    p = tmp_path / "bad.lwsession"
     if case == "empty":
         p.write_bytes(b"")
     elif case == "text":
@@ -192,7 +192,7 @@ def test_bad_files_give_one_line_errors(tmp_path, case, capsys):
 def test_random_byte_flips_never_escape_as_tracebacks(tmp_path, capsys):
     """Flip bytes anywhere past the header: the export either succeeds with the exact
     data (the flip hit unused space) or fails with one line."""
-    good = write_session(tmp_path / "good.lws", n_batches=60)
+    good = write_session(tmp_path / "good.lwsession", n_batches=60)
     ref = tmp_path / "ref.csv"
     assert main(["export", str(good), "-o", str(ref)]) == 0
     data = good.read_bytes()
@@ -202,7 +202,7 @@ def test_random_byte_flips_never_escape_as_tracebacks(tmp_path, capsys):
         bad = bytearray(data)
         for pos in rng.integers(100, len(data), 4):
             bad[pos] ^= int(rng.integers(1, 256))
-        p = tmp_path / f"f{trial}.lws"
+        p = tmp_path / f"f{trial}.lwsession"
         p.write_bytes(bytes(bad))
         out = tmp_path / f"f{trial}.csv"
         capsys.readouterr()
@@ -220,7 +220,7 @@ def test_random_byte_flips_never_escape_as_tracebacks(tmp_path, capsys):
 def test_seek_into_one_hour_session_reads_few_rows(tmp_path):
     """One hour at 10 readouts/s (36,000 ticks and batches): starting in the middle
     reads a handful of rows, by the time indexes."""
-    p = tmp_path / "hour.lws"
+    p = tmp_path / "hour.lwsession"
     n = 36_000
     a = np.linspace(-60, 60, 8)
     with SessionWriter(p, {}, synchronous="OFF") as w:

@@ -223,7 +223,7 @@ async def test_each_live_key_does_what_the_footer_says(tmp_path) -> None:
     made: list[FakeRecorder] = []
 
     def factory() -> FakeRecorder:
-        made.append(FakeRecorder(str(tmp_path / f"s{len(made)}.lws")))
+        made.append(FakeRecorder(str(tmp_path / f"s{len(made)}.lwsession")))
         return made[-1]
 
     driver = FakeDriver(mon, [tick])
@@ -281,7 +281,7 @@ async def test_each_live_key_does_what_the_footer_says(tmp_path) -> None:
         await pilot.press("w")
         assert app.recorder is made[0]
         app.refresh_view()
-        assert "REC s0.lws 12.3 kB" in status.plain
+        assert "REC s0.lwsession 12.3 kB" in status.plain
         await pilot.press("w")
         assert app.recorder is None and made[0].closed
         # ?: help, escape closes it
@@ -484,12 +484,12 @@ async def test_a_recording_started_by_the_command_line_shows_and_the_key_stops_i
     """`lobewatch live --record FILE` starts recording before the screen opens: the
     status line shows it at once and the record key stops that same recording."""
     mon = make_monitor()
-    rec = FakeRecorder(str(tmp_path / "site.lws"))
+    rec = FakeRecorder(str(tmp_path / "site.lwsession"))
     app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20, recorder=rec,
-                       recorder_factory=lambda: FakeRecorder(str(tmp_path / "other.lws")))
+                       recorder_factory=lambda: FakeRecorder(str(tmp_path / "other.lwsession")))
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(pilot, app)
         app.refresh_view()
-        assert "REC site.lws 12.3 kB" in app.query_one(StatusLine).plain
+        assert "REC site.lwsession 12.3 kB" in app.query_one(StatusLine).plain
         await pilot.press("w")
         assert app.recorder is None and rec.closed

@@ -10,8 +10,8 @@ from stream.errors import UserError
 
 #: Sub-commands in the order ``--help`` lists them; each names a module in
 #: ``tui.commands`` that defines ``register(subparsers)``.
-COMMANDS: tuple[str, ...] = ("demo", "live", "synth", "replay", "report", "import_", "export",
-                             "bench")
+COMMANDS: tuple[str, ...] = ("demo", "live", "synth", "replay", "report", "commission", "info",
+                             "import_", "export", "keys", "serve", "bench")
 
 EPILOG = """\
 Safety: stay out of the main beam of energised antennas and follow your local RF

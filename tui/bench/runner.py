@@ -174,7 +174,7 @@ def _redraw(plan: Plan, quick: bool, progress: Progress) -> dict[str, dict[str, 
 def _replay(plan: Plan, quick: bool, progress: Progress) -> dict[str, dict[str, Any]]:
     from tui.bench.replay import generate, run_replay
     with tempfile.TemporaryDirectory(prefix="lobewatch-bench-") as d:
-        path = os.path.join(d, "bench.lws")
+        path = os.path.join(d, "bench.lwsession")
         progress(f"replay: generating a {plan.replay_samples:,}-sample session")
         generate(path, plan.replay_samples)
         r = run_replay(path, plan.replay_runs, parts=False, progress=progress)

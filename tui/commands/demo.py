@@ -232,7 +232,7 @@ def _recorder_factory(args: argparse.Namespace, monitor: Monitor,
         with contextlib.suppress(ImportError, AttributeError):
             from tui.options import settings_record
             meta["settings"] = settings_record(args, monitor)
-        path = time.strftime("lobewatch-demo-%Y%m%d-%H%M%S.lws")
+        path = time.strftime("lobewatch-demo-%Y%m%d-%H%M%S.lwsession")
         return Recorder(path, meta).attach(monitor)
 
     return new_recording

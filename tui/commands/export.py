@@ -1,4 +1,4 @@
-"""``lobewatch export SESSION.lws -o FILE.csv``: samples (or events) of a session as CSV."""
+"""``lobewatch export SESSION.lwsession -o FILE.csv``: samples (or events) of a session as CSV."""
 
 from __future__ import annotations
 
@@ -16,7 +16,7 @@ def register(subparsers: Any) -> None:
                     "power_db, t) with floats printed so they read back exactly, or with "
                     "--events the recorded events (t, kind, then their fields).  The session "
                     "is only read.")
-    p.add_argument("file", metavar="SESSION.lws", help="session file")
+    p.add_argument("file", metavar="SESSION.lwsession", help="session file")
     p.add_argument("-o", "--output", required=True, metavar="FILE.csv", help="CSV to write")
     p.add_argument("--events", action="store_true", help="export the events, not the samples")
     p.add_argument("--force", action="store_true", help="overwrite the output if it exists")

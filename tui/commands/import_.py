@@ -1,4 +1,4 @@
-"""``lobewatch import FILE -o SESSION.lws``: turn a measured sweep into a session file."""
+"""``lobewatch import FILE -o SESSION.lwsession``: turn a measured sweep into a session file."""
 
 from __future__ import annotations
 
@@ -11,13 +11,13 @@ from replay.convert import SYNTHETIC_RATE_SPS, import_file
 
 def register(subparsers: Any) -> None:
     p = subparsers.add_parser(
-        "import", help="convert a CSV or JSON Lines sweep into a session file (.lws)",
+        "import", help="convert a CSV or JSON Lines sweep into a session file (.lwsession)",
         description="Read a CSV (angle_deg, power_dbm or power_db, optional t) or JSON Lines "
                     "file of wire-format messages and write it as a session that `lobewatch "
                     "replay` and `lobewatch report` read.  Every sample is kept exactly; the "
                     "input is only read.")
     p.add_argument("file", metavar="FILE", help="CSV or JSON Lines input")
-    p.add_argument("-o", "--output", required=True, metavar="SESSION.lws",
+    p.add_argument("-o", "--output", required=True, metavar="SESSION.lwsession",
                    help="session file to create")
     p.add_argument("--force", action="store_true", help="overwrite the output if it exists")
     p.add_argument("--rate", type=float, default=None, metavar="SPS",

@@ -67,7 +67,7 @@ def register(subparsers: Any) -> None:
     out.add_argument("--interval", type=float, default=None, metavar="S",
                      help="seconds between readouts (default 1 headless, 0.1 on screen)")
     out.add_argument("--record", metavar="FILE",
-                     help="also record the session to FILE (.lws) for replay")
+                     help="also record the session to FILE (.lwsession) for replay")
     out.add_argument("--force", action="store_true",
                      help="overwrite FILE given to --record")
     add_screen_arguments(p)
@@ -153,7 +153,7 @@ def run(args: argparse.Namespace) -> int:
         from tui.app import run_app
 
         def new_recording() -> Any:
-            path = time.strftime("lobewatch-%Y%m%d-%H%M%S.lws")
+            path = time.strftime("lobewatch-%Y%m%d-%H%M%S.lwsession")
             return _recorder(path, _metadata(args, monitor), False, monitor)
 
         return run_app(args, monitor, driver, mode="live", recorder_factory=new_recording,

@@ -28,12 +28,12 @@ _OWN_DESTS = ("file", "speed", "headless", "interval", "warmup", "start", "func"
 
 def register(subparsers: Any) -> None:
     p = subparsers.add_parser(
-        "replay", help="play a recorded session (.lws) through the monitor",
+        "replay", help="play a recorded session (.lwsession) through the monitor",
         description="Play a session file through the same estimator, metrics and alarms as "
                     "the live monitor: in the TUI at real time (or --speed X), or with "
                     "--headless as fast as possible, printing the same JSON Lines as "
                     "`lobewatch live --headless` with the recorded times.")
-    p.add_argument("file", metavar="FILE", help="session file (.lws)")
+    p.add_argument("file", metavar="FILE", help="session file (.lwsession)")
     p.add_argument("--speed", type=float, default=None, metavar="X",
                    help="recorded seconds per wall-clock second (TUI default 1; headless "
                         "default: as fast as possible)")

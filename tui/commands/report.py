@@ -35,7 +35,7 @@ shown side by side (e.g. the same mount swept with 1, 2 and 4 columns active).
 
 Files: CSV (.csv .tsv .txt) with a header naming angle_deg and power_dbm (or power_db
 for relative dB), optional t; '#' starts a comment line; comma, semicolon or tab
-separated.  JSON Lines (.jsonl .ndjson) of sample messages.  Session files (.lws).
+separated.  JSON Lines (.jsonl .ndjson) of sample messages.  Session files (.lwsession).
 
 With --elements the textbook array model is measured too: its pattern is computed on
 a 0.05-degree grid over the same angles the file covers and measured by the same code,
