@@ -191,27 +191,24 @@ def _unknown(path: str, where: str, key: str, known) -> InputFileError:
                                 f"{', '.join(sorted(known))}")
 
 
-def config_overrides_from_file(path: str | Path) -> tuple[dict[str, Any], dict[str, Any]]:
-    """(AlarmConfig field overrides, ``[notify]`` values) read from a TOML file."""
-    p = str(path)
-    doc = load_config_file(path)
-    for top in doc:
-        if top not in ("alarms", "notify"):
-            raise _unknown(p, "top level", top, ("alarms", "notify"))
+def alarm_overrides_from_table(alarms: Any, p: str,
+                               table: str = "alarms") -> dict[str, Any]:
+    """AlarmConfig field overrides from one ``[alarms]``-shaped table (also used for a
+    stream's ``[streams.NAME.alarms]``); ``table`` names it in error messages."""
     out: dict[str, Any] = {}
     raise_holds: dict[str, float] = {}
     clear_holds: dict[str, float] = {}
     severity: dict[str, str] = {}
-    alarms = doc.get("alarms", {})
     if not isinstance(alarms, dict):
-        raise InputFileError(p, "'alarms' must be a table: write [alarms]")
+        raise InputFileError(p, f"'{table}' must be a table: write [{table}]")
     for key, value in alarms.items():
         if key in RULE_KEYS:
             if not isinstance(value, dict):
-                raise InputFileError(p, f"'alarms.{key}' must be a table: write [alarms.{key}]")
+                raise InputFileError(p, f"'{table}.{key}' must be a table: write "
+                                        f"[{table}.{key}]")
             known = {**RULE_KEYS[key], "raise_hold_s": "", "clear_hold_s": "", "severity": ""}
             for k, v in value.items():
-                where = f"alarms.{key}"
+                where = f"{table}.{key}"
                 if k not in known:
                     raise _unknown(p, where, k, known)
                 if k == "severity":
@@ -225,15 +222,26 @@ def config_overrides_from_file(path: str | Path) -> tuple[dict[str, Any], dict[s
                 else:
                     out[RULE_KEYS[key][k]] = _check_type(p, where, k, RULE_KEYS[key][k], v)
         elif key in GENERAL_KEYS:
-            out[GENERAL_KEYS[key]] = _check_type(p, "alarms", key, GENERAL_KEYS[key], value)
+            out[GENERAL_KEYS[key]] = _check_type(p, table, key, GENERAL_KEYS[key], value)
         else:
-            raise _unknown(p, "alarms", key, [*GENERAL_KEYS, *RULE_KEYS])
+            raise _unknown(p, table, key, [*GENERAL_KEYS, *RULE_KEYS])
     if raise_holds:
         out["rule_raise_hold_s"] = raise_holds
     if clear_holds:
         out["rule_clear_hold_s"] = clear_holds
     if severity:
         out["severity"] = severity
+    return out
+
+
+def config_overrides_from_file(path: str | Path) -> tuple[dict[str, Any], dict[str, Any]]:
+    """(AlarmConfig field overrides, ``[notify]`` values) read from a TOML file."""
+    p = str(path)
+    doc = load_config_file(path)
+    for top in doc:
+        if top not in ("alarms", "notify", "streams"):  # [streams.*]: tui.fleet_options
+            raise _unknown(p, "top level", top, ("alarms", "notify", "streams"))
+    out = alarm_overrides_from_table(doc.get("alarms", {}), p)
     notify = doc.get("notify", {})
     if not isinstance(notify, dict):
         raise InputFileError(p, "'notify' must be a table: write [notify]")
