@@ -13,6 +13,7 @@ from stream.monitor import Monitor
 from stream.wire import DEFAULT_MAX_MESSAGE_BYTES, FORMATS
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
 from tui.cli import UsageError
+from tui.fleet_options import add_fleet_arguments, fleet_requested
 from tui.options import add_pipeline_arguments, add_screen_arguments, build_monitor
 
 DESCRIPTION = """\
@@ -40,8 +41,9 @@ def register(subparsers: Any) -> None:
         "live", help="watch a live ZeroMQ stream of samples",
         description=DESCRIPTION, epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("endpoint", metavar="ENDPOINT",
-                   help="ZeroMQ address, e.g. tcp://127.0.0.1:5557 or ipc:///run/beam.sock")
+    p.add_argument("endpoint", metavar="ENDPOINT", nargs="?",
+                   help="ZeroMQ address, e.g. tcp://127.0.0.1:5557 or ipc:///run/beam.sock "
+                        "(optional with --stream or [streams.NAME] in --config)")
     src = p.add_argument_group("stream")
     src.add_argument("--bind", action="store_true",
                      help="bind ENDPOINT and let publishers connect (default: connect to a "
@@ -72,6 +74,7 @@ def register(subparsers: Any) -> None:
                      help="overwrite FILE given to --record")
     add_screen_arguments(p)
     add_pipeline_arguments(p)
+    add_fleet_arguments(p)  # --stream, --record-dir, --metrics-listen (tui/fleet_options.py)
     p.set_defaults(func=run)
 
 
@@ -120,9 +123,13 @@ def _hook(args: argparse.Namespace) -> Any:
 
 
 def run(args: argparse.Namespace) -> int:
+    from replay.fleet import TopicGuard  # one topic per stream, never two merged
     from stream.live import LiveDriver
     from stream.zmq_source import ZmqSource
 
+    if not args.endpoint or fleet_requested(args):  # several streams / metrics endpoint
+        from tui.fleet_run import run_fleet
+        return run_fleet(args)
     check_endpoint(args.endpoint)
     interval = args.interval if args.interval is not None else (1.0 if args.headless else 0.1)
     if not interval > 0:
@@ -146,18 +153,18 @@ def run(args: argparse.Namespace) -> int:
                            fmt=args.fmt, hwm=args.hwm,
                            max_message_bytes=args.max_message_bytes,
                            stale_after_s=args.stale_after)
-        driver = LiveDriver(source, monitor, interval_s=interval)
+        driver = LiveDriver(TopicGuard(source, args.endpoint), monitor, interval_s=interval)
         if args.headless:
             from tui.headless import run_headless
             return run_headless(driver, monitor, out=sys.stdout, fail_on=fail_on)
-        from tui.app import run_app
+        from tui.options import beam_options_from_args, run_app
 
         def new_recording() -> Any:
             path = time.strftime("lobewatch-%Y%m%d-%H%M%S.lwsession")
             return _recorder(path, _metadata(args, monitor), False, monitor)
 
-        return run_app(args, monitor, driver, mode="live", recorder_factory=new_recording,
-                       recorder=recorder)
+        return run_app(monitor, driver, beam_options_from_args(
+            args, "live", recorder_factory=new_recording, recorder=recorder))
     finally:
         if source is not None:
             source.close()
