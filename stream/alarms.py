@@ -114,6 +114,8 @@ class AlarmConfig:
 
     Input: (rejected + lost messages) per second over the last ``input_window_s`` above
     ``input_rate_per_s``; cleared below ``input_rate_per_s x (1 - input_margin_frac)``.
+    Also raised by ``input_auth_failures`` failed security handshakes (a publisher
+    without the right CURVE keys, ``rejected["auth_failed"]``) within ``input_window_s``.
 
     Watch: for each angle in ``watch_deg``, the mean linear power within
     +-``watch_window_deg`` is compared with a baseline learned over the first
@@ -153,6 +155,7 @@ class AlarmConfig:
     input_rate_per_s: float = 1.0
     input_window_s: float = 10.0
     input_margin_frac: float = 0.5
+    input_auth_failures: int = 3
     watch_deg: tuple[float, ...] = ()
     watch_window_deg: float = 2.0
     watch_db: float = 3.0
@@ -182,6 +185,7 @@ class AlarmConfig:
         positive = ("tolerance_deg", "tolerance_hpbw_frac", "drift_max_age_s",
                     "broadening_frac", "broadening_major_frac", "gain_loss_db",
                     "gain_loss_major_db", "stale_s", "input_rate_per_s", "input_window_s",
+                    "input_auth_failures",
                     "watch_window_deg", "watch_db", "watch_track_s",
                     "drift_critical_factor")
         for name in positive:
@@ -355,7 +359,7 @@ class AlarmEngine:
         self.config = config or AlarmConfig()
         self._tracks: dict[str, _Track] = {}
         self._watch: dict[str, _WatchBaseline] = {}
-        self._input_hist: deque[tuple[float, int]] = deque()
+        self._input_hist: deque[tuple[float, int, int]] = deque()
         self._order: list[str] = []
         for rule in RULES:
             if rule in self.config.disabled:
@@ -628,19 +632,25 @@ class AlarmEngine:
         hist = self._input_hist
         if hist and (total < hist[-1][1] or tick.t < hist[-1][0]):
             hist.clear()  # counters restarted or time went back: start over
-        hist.append((tick.t, total))
+        auth = tick.source.rejected.get("auth_failed", 0)
+        hist.append((tick.t, total, auth))
         while len(hist) > 2 and hist[1][0] <= tick.t - cfg.input_window_s:
             hist.popleft()
-        t0, n0 = hist[0]
+        t0, n0, a0 = hist[0]
         if tick.t <= t0:
             return _Reading(None, None, cfg.input_rate_per_s, "1/s", "")
         rate = (total - n0) / max(tick.t - t0, cfg.input_window_s)
         level = _hyst_level(rate, self._cur(tr), cfg.input_rate_per_s,
                             cfg.input_rate_per_s * (1 - cfg.input_margin_frac))
+        if auth - a0 >= cfg.input_auth_failures:  # keyless publishers knocking
+            level = max(level, 1)
         rej = ", ".join(f"{k} {v}" for k, v in sorted(tick.source.rejected.items())) or "none"
         detail = (f"{rate:.2f} rejected or lost messages/s over {cfg.input_window_s:g} s "
                   f"(limit {cfg.input_rate_per_s:g}/s; rejected: {rej}; lost "
                   f"{tick.source.lost})")
+        if auth > a0:
+            detail = (f"{auth - a0} failed security handshakes (a publisher without the "
+                      f"right CURVE keys) in {cfg.input_window_s:g} s; " + detail)
         return _Reading(rate, level, cfg.input_rate_per_s, "1/s", detail)
 
     def _window_power_lin(self, a: float, tick: Tick) -> float | None:

@@ -47,6 +47,7 @@ import zmq.asyncio
 from zmq.utils.monitor import recv_monitor_message
 
 from stream.batch import SampleBatch
+from stream.curve import AUTH_FAILED, HANDSHAKE_FAILED_EVENTS, CurveConfig, CurveGuard
 from stream.errors import UserError
 from stream.tick import SourceStats
 from stream.wire import DEFAULT_MAX_MESSAGE_BYTES, FORMATS, MAX_PARTS, Decoder
@@ -59,7 +60,8 @@ DEFAULT_DRAIN_MAX: int = 2_000
 _DISCARD_BUDGET: int = 20_000
 
 _MONITOR_EVENTS = (zmq.EVENT_CONNECTED | zmq.EVENT_DISCONNECTED | zmq.EVENT_ACCEPTED
-                   | zmq.EVENT_HANDSHAKE_SUCCEEDED | zmq.EVENT_CLOSED)
+                   | zmq.EVENT_HANDSHAKE_SUCCEEDED | zmq.EVENT_CLOSED
+                   | HANDSHAKE_FAILED_EVENTS)
 _ENDPOINT_SCHEMES = ("tcp://", "ipc://", "inproc://")
 _counter = itertools.count()
 
@@ -88,7 +90,7 @@ class ZmqSource:
                  batch_wait_s: float = 0.01,
                  heartbeat_ivl_ms: int = 1000,
                  heartbeat_timeout_ms: int = 3000, reconnect_ivl_ms: int = 200,
-                 poll_ms: int = 200) -> None:
+                 poll_ms: int = 200, curve: CurveConfig | None = None) -> None:
         self.endpoint = check_endpoint(endpoint)
         if fmt not in FORMATS:
             raise UserError(f"unknown format {fmt!r}; choose from {', '.join(FORMATS)}")
@@ -115,6 +117,8 @@ class ZmqSource:
         self._discarding = False
         self._need_reopen = False
         self._ctx = zmq.Context()
+        # CURVE keys per socket; when binding, the allow list's ZAP handler (stream.curve)
+        self.curve = CurveGuard(curve, self._ctx) if curve is not None else None
         self._sock: zmq.Socket | None = None
         self._asock: zmq.asyncio.Socket | None = None
         self._mon: zmq.Socket | None = None
@@ -132,6 +136,8 @@ class ZmqSource:
         s.setsockopt(zmq.RECONNECT_IVL, self.reconnect_ivl_ms)
         s.setsockopt(zmq.RECONNECT_IVL_MAX, max(self.reconnect_ivl_ms, 2000))
         s.setsockopt(zmq.SUBSCRIBE, self.topic)
+        if self.curve is not None:
+            self.curve.apply(s)
         addr = f"inproc://lobewatch-monitor-{id(self)}-{next(_counter)}"
         s.monitor(addr, _MONITOR_EVENTS)
         mon = self._ctx.socket(zmq.PAIR)
@@ -144,6 +150,8 @@ class ZmqSource:
                 s.connect(self.endpoint)
         except zmq.ZMQError as exc:
             self._close_sockets(s, mon)
+            if self.curve is not None:
+                self.curve.close()
             raise UserError(f"cannot {'bind' if self.bind else 'connect'} "
                             f"{self.endpoint}: {exc.strerror}; check the address "
                             "(is the port in use?)") from None
@@ -186,6 +194,8 @@ class ZmqSource:
             except zmq.ZMQError:
                 return
             kind = ev.get("event")
+            if kind is not None and kind & HANDSHAKE_FAILED_EVENTS:
+                self.decoder.reject(AUTH_FAILED)  # a peer without the right keys
             if kind == zmq.EVENT_DISCONNECTED:
                 self.disconnects += 1
                 self.connected = False
@@ -334,3 +344,5 @@ class ZmqSource:
         if asock is not None:
             asock.close(linger=0)
         self._close_sockets(s, mon)
+        if self.curve is not None:
+            self.curve.close()  # its ZAP socket would hold ctx.term() up
