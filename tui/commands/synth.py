@@ -13,6 +13,7 @@ from stream.errors import UserError
 from stream.scenarios import SCENARIOS
 from stream.synth import DEFAULT_ENDPOINT, SYNTH_FORMATS, SynthConfig, run_publisher
 from tui.cli import UsageError
+from tui.fleet_synth import add_array_arguments, run_arrays
 
 _D = SynthConfig()
 
@@ -91,6 +92,7 @@ def register(subparsers: Any) -> None:
                    help="send power_db (relative) instead of power_dbm")
     m.add_argument("--seed", type=int, default=_D.seed, metavar="N",
                    help=f"random seed for noise and fading (default {_D.seed})")
+    add_array_arguments(p)  # several arrays on several ports (tui/fleet_synth.py)
     p.set_defaults(func=run)
 
 
@@ -142,8 +144,8 @@ def run(args: argparse.Namespace) -> int:
               file=sys.stderr, flush=True)
 
     try:
-        sent = run_publisher(args.endpoint, config, stop, duration_s=args.duration,
-                             on_ready=ready)
+        sent = run_arrays(args, config, stop) if args.arrays else run_publisher(
+            args.endpoint, config, stop, duration_s=args.duration, on_ready=ready)
     except UserError:
         raise
     finally:
