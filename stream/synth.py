@@ -34,6 +34,7 @@ import threading
 import time
 from collections.abc import Callable, Iterator
 from dataclasses import asdict, dataclass, replace
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -46,6 +47,9 @@ from stream.wire import (
     encode_json_single,
     encode_raw_f32,
 )
+
+if TYPE_CHECKING:
+    from stream.curve import CurveConfig
 
 #: Message formats the publisher can emit.
 SYNTH_FORMATS: tuple[str, ...] = ("json-single", "json-batch", "binary", "raw-f32")
@@ -252,15 +256,18 @@ def encode_batch(b: SampleBatch, fmt: str, seq: int, epoch: str, topic: bytes = 
 def run_publisher(endpoint: str, config: SynthConfig, stop: threading.Event | None = None,
                   *, duration_s: float | None = None, clock: Callable[[], float] = time.time,
                   on_ready: Callable[[str], None] | None = None,
-                  sndhwm: int = 100_000) -> int:
+                  sndhwm: int = 100_000, curve: CurveConfig | None = None) -> int:
     """Bind a PUB socket at ``endpoint`` and publish the simulation in real time until
     ``stop`` is set or ``duration_s`` has passed.  Returns the messages sent.
 
     Each start draws a random ``epoch`` and numbers messages from ``seq`` 0, so a
     subscriber tells a restart from a loss.  ``on_ready`` gets the bound address (useful
-    with ``tcp://127.0.0.1:*``).
+    with ``tcp://127.0.0.1:*``).  ``curve`` (:mod:`stream.curve`) makes the socket a
+    CURVE server that admits only the subscribers in its allow list.
     """
     import zmq  # local: the generator above must not need a socket library
+
+    from stream.curve import CurveGuard
 
     config = config.validate()
     stop = stop or threading.Event()
@@ -268,10 +275,15 @@ def run_publisher(endpoint: str, config: SynthConfig, stop: threading.Event | No
     sock = ctx.socket(zmq.PUB)
     sock.setsockopt(zmq.LINGER, 0)
     sock.setsockopt(zmq.SNDHWM, int(sndhwm))
+    guard = CurveGuard(curve, ctx) if curve is not None else None
+    if guard is not None:
+        guard.apply(sock)
     try:
         sock.bind(endpoint)
     except zmq.ZMQError as exc:
         sock.close(0)
+        if guard is not None:
+            guard.close()
         ctx.term()
         from stream.errors import UserError
         raise UserError(f"cannot bind {endpoint}: {exc.strerror}; pick another port "
@@ -305,6 +317,8 @@ def run_publisher(endpoint: str, config: SynthConfig, stop: threading.Event | No
                 stop.wait(min(wait, 0.05))
     finally:
         sock.close(0)
+        if guard is not None:
+            guard.close()
         ctx.term()
     return sent
 

@@ -66,8 +66,8 @@ def add_metrics_arguments(parser: argparse.ArgumentParser) -> None:
                         f"for Prometheus; HOST defaults to {DEFAULT_METRICS_HOST} (':9108' "
                         "or '9108' is enough); port 0 picks a free one (see docs/fleet.md)")
     g.add_argument("--insecure-listen", action="store_true",
-                   help="allow --metrics-listen on an address other than loopback (the "
-                        "endpoint has no authentication; put it on a trusted network)")
+                   help="allow --metrics-listen (no authentication), or --bind without "
+                        "CURVE, on an address other than loopback (trusted networks only)")
 
 
 def add_fleet_arguments(parser: argparse.ArgumentParser) -> None:
@@ -143,8 +143,8 @@ def start_metrics_from_args(args: argparse.Namespace, stations: Any) -> Any:
     the URL on stderr so a user (or a test) knows the port picked for ``:0``."""
     text = getattr(args, "metrics_listen", None)
     if not text:
-        if getattr(args, "insecure_listen", False):
-            raise UsageError("--insecure-listen only applies with --metrics-listen")
+        if getattr(args, "insecure_listen", False) and not getattr(args, "bind", False):
+            raise UsageError("--insecure-listen only applies with --metrics-listen or --bind")
         return None
     host, port = parse_listen(text, getattr(args, "insecure_listen", False))
     from tui.exporter import serve_metrics

@@ -13,6 +13,7 @@ from stream.monitor import Monitor
 from stream.wire import DEFAULT_MAX_MESSAGE_BYTES, FORMATS
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
 from tui.cli import UsageError
+from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
 from tui.fleet_options import add_fleet_arguments, fleet_requested
 from tui.options import add_pipeline_arguments, add_screen_arguments, build_monitor
 
@@ -75,6 +76,7 @@ def register(subparsers: Any) -> None:
     add_screen_arguments(p)
     add_pipeline_arguments(p)
     add_fleet_arguments(p)  # --stream, --record-dir, --metrics-listen (tui/fleet_options.py)
+    add_curve_arguments(p)  # --curve-secret/-server/-allow (tui/curve_options.py)
     p.set_defaults(func=run)
 
 
@@ -131,6 +133,10 @@ def run(args: argparse.Namespace) -> int:
         from tui.fleet_run import run_fleet
         return run_fleet(args)
     check_endpoint(args.endpoint)
+    curve = curve_from_args(args, bind=args.bind)  # CURVE keys; the listening rule below
+    if args.bind:
+        check_listen(args.endpoint, curve=curve, insecure=args.insecure_listen,
+                     what="send samples to this monitor")
     interval = args.interval if args.interval is not None else (1.0 if args.headless else 0.1)
     if not interval > 0:
         raise UsageError(f"--interval must be positive, got {args.interval}")
@@ -152,7 +158,7 @@ def run(args: argparse.Namespace) -> int:
         source = ZmqSource(args.endpoint, bind=args.bind, topic=args.topic.encode(),
                            fmt=args.fmt, hwm=args.hwm,
                            max_message_bytes=args.max_message_bytes,
-                           stale_after_s=args.stale_after)
+                           stale_after_s=args.stale_after, curve=curve)
         driver = LiveDriver(TopicGuard(source, args.endpoint), monitor, interval_s=interval)
         if args.headless:
             from tui.headless import run_headless

@@ -13,6 +13,7 @@ from stream.errors import UserError
 from stream.scenarios import SCENARIOS
 from stream.synth import DEFAULT_ENDPOINT, SYNTH_FORMATS, SynthConfig, run_publisher
 from tui.cli import UsageError
+from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
 from tui.fleet_synth import add_array_arguments, run_arrays
 
 _D = SynthConfig()
@@ -39,6 +40,7 @@ def register(subparsers: Any) -> None:
     p.add_argument("--endpoint", default=DEFAULT_ENDPOINT, metavar="ADDR",
                    help=f"address to bind (default {DEFAULT_ENDPOINT}; tcp://127.0.0.1:* "
                         "picks a free port and prints it)")
+    add_curve_arguments(p, role="publisher")  # --curve-secret/-allow (tui/curve_options.py)
     p.add_argument("--scenario", default=_D.scenario, choices=tuple(SCENARIOS),
                    help=f"scripted situation (default {_D.scenario}); see --list-scenarios")
     p.add_argument("--list-scenarios", action="store_true",
@@ -126,6 +128,9 @@ def run(args: argparse.Namespace) -> int:
         print(list_scenarios())
         return 0
     config = config_from_args(args)
+    curve = curve_from_args(args, bind=True)  # the publisher binds: a CURVE server
+    check_listen(args.endpoint, curve=curve, insecure=args.insecure_listen,
+                 what="read the samples")
     if args.duration is not None and not args.duration > 0:
         raise UsageError(f"--duration must be positive, got {args.duration}")
     if args.fmt == "json-single" and args.rate_sps > 200_000:
@@ -145,7 +150,8 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         sent = run_arrays(args, config, stop) if args.arrays else run_publisher(
-            args.endpoint, config, stop, duration_s=args.duration, on_ready=ready)
+            args.endpoint, config, stop, duration_s=args.duration, on_ready=ready,
+            curve=curve)
     except UserError:
         raise
     finally:
