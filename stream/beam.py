@@ -32,7 +32,11 @@ class BeamMetrics:
     """Metrics of one pattern; a value the data cannot determine is ``None``.
 
     ``reasons`` maps a metric key whose value is ``None`` to a short human sentence
-    saying why (e.g. "pattern never falls 3 dB below the peak inside the scanned span").
+    saying why (e.g. "pattern never falls 3 dB below the peak inside the scanned span");
+    it may also hold a sentence for a determined value that needs a caveat (e.g. the
+    sampling step limits it).  ``uncertainty`` maps ``peak_angle_deg``, ``hpbw_deg``
+    and ``sll_db`` to a one-sigma uncertainty in the metric's unit
+    (:mod:`stream.uncertainty`); a key is absent when no figure could be given.
     """
 
     peak_angle_deg: float | None = None
@@ -46,6 +50,12 @@ class BeamMetrics:
     sll_angle_deg: float | None = None
     front_to_back_db: float | None = None
     reasons: dict[str, str] = field(default_factory=dict)
+    uncertainty: dict[str, float] = field(default_factory=dict)
+
+    def notes(self) -> dict[str, str]:
+        """``{key: reason}`` for every metric that is ``None`` and every caveat given:
+        what ``--json`` prints beside the values so a ``null`` is never bare."""
+        return {k: self.reasons[k] for k in METRIC_KEYS if k in self.reasons}
 
     def to_dict(self) -> dict[str, float | None]:
         """The metric keys and their values (JSON-ready; ``None`` becomes null)."""
@@ -57,4 +67,5 @@ class BeamMetrics:
         return cls(reasons={k: reason for k in METRIC_KEYS})
 
 
-assert tuple(f.name for f in fields(BeamMetrics) if f.name != "reasons") == METRIC_KEYS
+assert tuple(f.name for f in fields(BeamMetrics)
+             if f.name not in ("reasons", "uncertainty")) == METRIC_KEYS

@@ -9,18 +9,27 @@ import numpy as np
 
 from stream.beam import BeamMetrics
 
-#: Source states a front end can show.
-SOURCE_STATES: tuple[str, ...] = ("waiting", "receiving", "stale", "ended")
+#: Source states a front end can show: ``waiting`` (nothing yet), ``receiving`` (up),
+#: ``stale`` (no samples for the staleness setting), ``restarted`` (receiving again from
+#: a new publisher epoch, shown for :data:`RESTART_SHOW_S`), ``ended`` (closed).
+SOURCE_STATES: tuple[str, ...] = ("waiting", "receiving", "stale", "restarted", "ended")
+#: How long a restart is announced as the state ``restarted``, seconds.
+RESTART_SHOW_S: float = 2.0
 
 
 @dataclass(frozen=True, slots=True)
 class SourceStats:
     """A source's counters at one instant (cumulative since the source started).
 
-    ``rejected`` maps a reason (e.g. ``"non_finite"``, ``"bad_json"``) to a count;
-    ``lost`` counts messages missing from the ``seq`` numbering, ``restarts`` the
-    publisher restarts seen (a new ``epoch``), ``lost_after_restart`` the share of
-    ``lost`` that fell right after a restart (the slow-joiner effect).
+    Every message is counted once: ``messages`` accepted, ``rejected`` by reason (e.g.
+    ``"non_finite"``, ``"duplicate"``), or ``lost``.  ``lost`` counts messages missing
+    from the ``seq`` numbering plus ``shed`` (received but dropped unread because the
+    receiver fell behind).  ``restarts`` counts publisher restarts (a new ``epoch``);
+    ``lost_after_restart`` counts the messages a new publisher sent before this
+    receiver reconnected (the slow-joiner effect): it is *not* part of ``lost``, since a
+    restart is not input trouble.  ``senders`` is the largest number of publishers seen
+    interleaving on one topic (two epochs alternating; 0 before any numbered message).
+    ``reject_examples`` keeps the start of the first message refused for each reason.
     """
 
     state: str = "waiting"
@@ -29,6 +38,9 @@ class SourceStats:
     lost: int = 0
     restarts: int = 0
     lost_after_restart: int = 0
+    shed: int = 0
+    senders: int = 0
+    reject_examples: dict[str, str] = field(default_factory=dict)
 
     @property
     def rejected_total(self) -> int:
@@ -37,14 +49,18 @@ class SourceStats:
     def to_dict(self) -> dict[str, Any]:
         return {"state": self.state, "messages": self.messages, "rejected": dict(self.rejected),
                 "lost": self.lost, "restarts": self.restarts,
-                "lost_after_restart": self.lost_after_restart}
+                "lost_after_restart": self.lost_after_restart, "shed": self.shed,
+                "senders": self.senders, "reject_examples": dict(self.reject_examples)}
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> SourceStats:
         return cls(state=str(d.get("state", "waiting")), messages=int(d.get("messages", 0)),
                    rejected={str(k): int(v) for k, v in dict(d.get("rejected", {})).items()},
                    lost=int(d.get("lost", 0)), restarts=int(d.get("restarts", 0)),
-                   lost_after_restart=int(d.get("lost_after_restart", 0)))
+                   lost_after_restart=int(d.get("lost_after_restart", 0)),
+                   shed=int(d.get("shed", 0)), senders=int(d.get("senders", 0)),
+                   reject_examples={str(k): str(v) for k, v
+                                    in dict(d.get("reject_examples", {})).items()})
 
 
 @dataclass(frozen=True, slots=True)
@@ -75,7 +91,11 @@ class Reference:
 @dataclass(frozen=True, slots=True)
 class Tick:
     """One readout of the pipeline at time ``t`` (receive clock live, recorded clock
-    in replay).  ``angle_deg``/``power_db`` are the live pattern's valid bins."""
+    in replay).  ``angle_deg``/``power_db`` are the live pattern's valid bins.
+
+    ``age_s`` is how old the newest sample is at ``t`` (``None`` before any);
+    ``provisional`` stays true until one complete sweep has been seen, so a front end
+    can mark a peak read from a partial pattern."""
 
     t: float
     metrics: BeamMetrics
@@ -95,18 +115,40 @@ class Tick:
     expected_hpbw_deg: float | None = None
     calibrated: bool = True
     events: tuple[Event, ...] = ()
+    age_s: float | None = None
+    provisional: bool = True
+    bearing: Any = None  # stream.bearing.BearingConvention when the user set one
 
     def metrics_record(self) -> dict[str, Any]:
         """The headless ``metrics`` JSON line as a dict."""
         rec: dict[str, Any] = {"type": "metrics", "t": self.t}
-        rec.update(self.metrics.to_dict())
+        m = self.metrics
+        rec.update(m.to_dict())
+        unc = getattr(m, "uncertainty", None)
+        if unc:
+            rec["uncertainty"] = dict(unc)
+        notes = m.notes()
+        if notes:
+            rec["notes"] = notes
+        src = self.source
         rec.update({
             "samples": self.samples,
             "sweeps": self.sweeps,
             "rate_sps": self.rate_sps,
             "peak_angle_spread_deg": self.peak_angle_spread_deg,
-            "rejected": dict(self.source.rejected),
-            "lost": self.source.lost,
-            "state": self.source.state,
+            "rejected": dict(src.rejected),
+            "lost": src.lost,
+            "state": src.state,
+            "stale": src.state == "stale",
+            "age_s": self.age_s,
+            "provisional": self.provisional,
         })
+        if self.bearing is not None:  # compass bearing of the peak (stream/bearing.py)
+            pk = m.peak_angle_deg
+            rec["peak_bearing_deg"] = None if pk is None else self.bearing.bearing_deg(pk)
+            rec["bearing_reference"] = self.bearing.reference
+        if src.reject_examples:
+            rec["reject_examples"] = dict(src.reject_examples)
+        if src.senders > 1:
+            rec["senders"] = src.senders
         return rec

@@ -12,9 +12,15 @@ preceded by one topic frame:
   pairs, no header; only when the decoder is built with ``fmt="raw-f32"``.
 
 The :class:`Decoder` never raises: a message it cannot use is dropped and counted under a
-stable snake_case reason (:data:`REJECT_REASONS`).  ``seq`` gaps are counted as lost
-messages per ``(topic, epoch)``; a new ``epoch`` is a publisher restart, and the messages
-missing at the start of the new epoch are the slow-joiner loss (``lost_after_restart``).
+stable snake_case reason (:data:`REJECT_REASONS`), and the start of the first message
+refused for each reason is kept so a publisher's author sees what to fix.  Every message
+is counted once: accepted, rejected, or lost.  ``seq`` gaps are counted as lost messages
+per ``(topic, epoch)``, less the messages refused in between whose ``seq`` could not be
+read (they are already counted as rejected); a repeated ``seq`` is ``duplicate`` and one
+that goes back within an epoch ``seq_backward``.  A new ``epoch`` is a publisher restart:
+the messages missing at the start of the new epoch are the slow-joiner loss
+(``lost_after_restart``), which is not counted as lost.  Two epochs that keep
+alternating on one topic are two senders (reported once in ``senders``), not restarts.
 
 Speed: JSON singles are parsed with one ``json.loads`` and a fast path of a few type and
 range checks; consecutive singles of one stream received in one drain are coalesced into
@@ -55,6 +61,15 @@ MAX_PARTS: int = 3
 #: Consecutive batches of one stream decoded together are merged up to this many
 #: samples: the estimator's cost is mostly per call below about 10,000 samples.
 MERGE_SAMPLES: int = 8192
+#: Largest ``seq`` (and ``count``) accepted: a signed 64-bit integer.
+SEQ_LIMIT: int = 2 ** 63
+#: Bytes of a refused message kept as its example (``SourceStats.reject_examples``).
+EXAMPLE_BYTES: int = 80
+#: Epochs remembered per topic to recognise two senders alternating.
+_EPOCHS_KEPT: int = 8
+#: A ``seq`` at most this far below the last one in its epoch is ``seq_backward``;
+#: further back the numbering started again (a restart, or another sender).
+REORDER_WINDOW: int = 1000
 
 #: Every reason a message can be rejected for, in a stable order.
 REJECT_REASONS: tuple[str, ...] = (
@@ -66,10 +81,15 @@ REJECT_REASONS: tuple[str, ...] = (
     "non_finite",       # NaN or infinity in t, angle or power
     "angle_range",      # angle outside [-180, 360) degrees
     "power_range",      # power outside [-200, +60] dB
+    "out_of_range",     # a number too large for float64 (e.g. a 310-digit literal), or a
+                        # seq / count beyond a signed 64-bit integer
     "unknown_version",  # "v" present and not 1
     "oversize",         # message bytes or sample count over the cap
     "too_many_parts",   # more frames than topic + header + data
     "bad_binary",       # bad binary header or data frame length
+    "auth_failed",      # a peer failed the CURVE handshake (counted by the socket)
+    "duplicate",        # the same seq again in one epoch (a repeated message)
+    "seq_backward",     # a seq lower than one already seen in the same epoch
     "internal_error",   # a bug in this module (should stay at zero)
 )
 
@@ -87,14 +107,31 @@ class Reject(ValueError):
         self.reason = reason
 
 
-#: Placeholder for a frame that failed to parse (already counted).
-_BAD = object()
+class _Bad:
+    """Placeholder for a frame that failed to parse, with the reason (counted in order
+    with the other messages, so a seq gap after it sees it)."""
+
+    __slots__ = ("reason",)
+
+    def __init__(self, reason: str) -> None:
+        self.reason = reason
+
+
+_OVERSIZE, _EMPTY, _BAD_JSON = _Bad("oversize"), _Bad("empty"), _Bad("bad_json")
 
 
 @dataclass
 class _StreamSeq:
+    """Numbering state of one topic: the current epoch and its last ``seq``, plus the
+    last ``seq`` of the other epochs seen recently (a second sender's)."""
+
     epoch: str | None
     last_seq: int
+    #: other numberings seen on this topic: [epoch, last_seq, restart_lost, flagged]
+    others: list[list[Any]] | None = None
+    senders: int = 1
+    restart_lost: int | None = None  # slow-joiner count when it began as a restart
+    flagged: bool = False            # known to be one of several senders
 
 
 # ---------------------------------------------------------------------------------------
@@ -108,7 +145,10 @@ def _scalar(obj: dict, key: str) -> float:
     v = obj[key]
     if not _is_num(v):
         raise Reject("bad_type", f"{key} must be a number")
-    v = float(v)
+    try:
+        v = float(v)
+    except OverflowError:
+        raise Reject("out_of_range", f"{key} does not fit a 64-bit float") from None
     if not math.isfinite(v):
         raise Reject("non_finite", key)
     return v
@@ -117,7 +157,10 @@ def _scalar(obj: dict, key: str) -> float:
 def _array(v: Any, key: str) -> np.ndarray:
     """A JSON value (number or list of numbers) as a 1-D float64 array."""
     if _is_num(v):
-        return np.array([float(v)], dtype=np.float64)
+        try:
+            return np.array([float(v)], dtype=np.float64)
+        except OverflowError:
+            raise Reject("out_of_range", f"{key} does not fit a 64-bit float") from None
     if type(v) is not list:
         raise Reject("bad_type", f"{key} must be a number or an array of numbers")
     if len(v) > MAX_SAMPLES_PER_MESSAGE:
@@ -128,7 +171,13 @@ def _array(v: Any, key: str) -> np.ndarray:
         arr = np.array(v)
     except (ValueError, TypeError, OverflowError):
         raise Reject("bad_type", f"{key} must be a flat array of numbers") from None
-    if arr.ndim != 1 or arr.dtype.kind not in "if":
+    if arr.ndim == 1 and arr.dtype.kind == "O" and all(_is_num(x) for x in v):
+        # integers beyond int64 make an object array: too large for float64?
+        try:
+            return np.array([float(x) for x in v], dtype=np.float64)
+        except OverflowError:
+            raise Reject("out_of_range", f"{key} does not fit a 64-bit float") from None
+    if arr.ndim != 1 or arr.dtype.kind not in "iuf":
         raise Reject("bad_type", f"{key} must be a flat array of numbers")
     return arr.astype(np.float64, copy=False)
 
@@ -158,8 +207,10 @@ def _ranges_ok(a: np.ndarray, p: np.ndarray) -> bool:
 def _seq_epoch(obj: dict) -> tuple[int | None, str | None]:
     seq = obj.get("seq")
     if seq is not None:
-        if type(seq) is not int or seq < 0 or seq >= 2 ** 63:
+        if type(seq) is not int or seq < 0:
             raise Reject("bad_type", "seq must be a non-negative integer")
+        if seq >= SEQ_LIMIT:
+            raise Reject("out_of_range", "seq must be below 2**63")
     epoch = obj.get("epoch")
     if epoch is not None:
         if type(epoch) is int:
@@ -205,8 +256,8 @@ def parse_json_object(obj: Any, rx_t: float, stream: str = "") -> SampleBatch:
     t: np.ndarray | None
     if "t" in obj and obj["t"] is not None:
         t = _array(obj["t"], "t")
-        if t.size == 1 and n > 1:
-            raise Reject("ragged", "t has 1 value for several samples; use t0 and dt")
+        if t.size == 1 and n > 1 and _is_num(obj["t"]):
+            t = np.full(n, t[0])  # one scalar t: all samples were taken at t
         if t.size != n:
             raise Reject("ragged", f"t has {t.size} values, angle_deg {n}")
     elif "t0" in obj:
@@ -277,6 +328,8 @@ def _parse_binary(header_frame: Any, data_frame: Any, rx_t: float, stream: str,
         raise Reject("bad_binary", "count must be an integer")
     if count <= 0:
         raise Reject("empty" if count == 0 else "bad_binary", "count")
+    if count >= SEQ_LIMIT:
+        raise Reject("out_of_range", f"count {count}")
     if count > max_samples:
         raise Reject("oversize", f"count {count}")
     layout = None
@@ -364,44 +417,114 @@ class Decoder:
         self.messages = 0
         self.samples = 0
         self.rejected: dict[str, int] = {}
+        self.reject_examples: dict[str, str] = {}
         self.lost = 0
+        self.shed = 0
         self.restarts = 0
         self.lost_after_restart = 0
+        self.senders = 0
+        #: Receive time of the last restart (``None`` once explained as a second sender).
+        self.last_restart_rx: float | None = None
+        self._rx = 0.0
+        # messages refused or shed since the last numbered one whose seq was not read:
+        # a following seq gap is first filled by them (they are already counted)
+        self._unnumbered = 0
         self._seq: dict[str, _StreamSeq] = {}
         self._layouts: dict[tuple, tuple] = {}  # checked binary header layouts
 
     # -- counters ----------------------------------------------------------------------
-    def reject(self, reason: str, n: int = 1) -> None:
-        """Count ``n`` messages refused for ``reason`` (also used by the socket layer)."""
+    def reject(self, reason: str, n: int = 1, example: Any = None) -> None:
+        """Count ``n`` messages refused for ``reason`` (also used by the socket layer);
+        ``example`` (bytes or text) is kept for the first refusal of each reason."""
         self.rejected[reason] = self.rejected.get(reason, 0) + n
+        self._unnumbered += n
+        if reason not in self.reject_examples:
+            self.reject_examples[reason] = excerpt(example)
+
+    def shed_messages(self, n: int) -> None:
+        """Count ``n`` messages dropped unread because the receiver fell behind: they
+        are lost (``lost`` and ``shed``), never also counted as a ``seq`` gap."""
+        self.shed += n
+        self.lost += n
+        self._unnumbered += n
 
     def stats(self, state: str = "waiting") -> SourceStats:
         return SourceStats(state=state, messages=self.messages, rejected=dict(self.rejected),
                            lost=self.lost, restarts=self.restarts,
-                           lost_after_restart=self.lost_after_restart)
+                           lost_after_restart=self.lost_after_restart, shed=self.shed,
+                           senders=self.senders,
+                           reject_examples=dict(self.reject_examples))
 
-    def _account(self, stream: str, seq: int | None, epoch: str | None) -> None:
-        """Seq gap accounting for one accepted message."""
+    def _account(self, stream: str, seq: int | None, epoch: str | None) -> str | None:
+        """Seq accounting for one message; the reject reason (``duplicate``,
+        ``seq_backward``) when its number says it must not be used, else ``None``."""
         if seq is None:
-            return
+            return None
         st = self._seq.get(stream)
         if st is None:  # first contact: we joined whenever; nothing to call lost
             self._seq[stream] = _StreamSeq(epoch, seq)
-            return
-        if epoch != st.epoch or (epoch is None and seq < st.last_seq):
-            # New epoch (or, without epochs, the numbering went back): a restart.  The
-            # messages before this one in the new numbering never arrived: slow joiner.
-            self.restarts += 1
-            self.lost += seq
-            self.lost_after_restart += seq
-            st.epoch = epoch
-            st.last_seq = seq
-            return
-        gap = seq - st.last_seq - 1
-        if gap > 0:
-            self.lost += gap
-        if seq > st.last_seq:
-            st.last_seq = seq
+            self.senders = max(self.senders, 1)
+            self._unnumbered = 0
+            return None
+        if epoch == st.epoch:
+            last = st.last_seq
+            if seq == last:
+                return "duplicate"
+            if last - REORDER_WINDOW <= seq < last:
+                return "seq_backward"
+            if seq > last + REORDER_WINDOW and self._switch(st, epoch, seq):
+                return self._account(stream, seq, epoch)
+            if seq > last:
+                gap = seq - last - 1 - self._unnumbered
+                if gap > 0:
+                    self.lost += gap
+                st.last_seq = seq
+                self._unnumbered = 0
+                return None
+            # numbering far back in the same epoch: another sender, or it started again
+            if self._switch(st, epoch, seq):
+                return self._account(stream, seq, epoch)
+        elif self._switch(st, epoch, seq):
+            return self._account(stream, seq, epoch)
+        # A new epoch (or, in the same epoch, numbering that started again): a restart.
+        # The messages before this one in the new numbering never arrived: slow joiner.
+        self.restarts += 1
+        self.lost_after_restart += seq
+        self.last_restart_rx = self._rx
+        others = st.others if st.others is not None else []
+        others.append([st.epoch, st.last_seq, seq, st.flagged])
+        if len(others) > _EPOCHS_KEPT:
+            del others[0]
+        st.others = others
+        st.epoch, st.last_seq, st.restart_lost, st.flagged = epoch, seq, seq, False
+        self._unnumbered = 0
+        return None
+
+    def _switch(self, st: _StreamSeq, epoch: str | None, seq: int) -> bool:
+        """When ``(epoch, seq)`` continues a numbering remembered from before the last
+        restart, that "restart" was a second sender: make that numbering current, take
+        back the restart it was counted as (once), and return True."""
+        others = st.others
+        if not others:
+            return False
+        for i in range(len(others) - 1, -1, -1):
+            o_epoch, o_last, o_restart_lost, o_flagged = others[i]
+            if o_epoch == epoch and o_last - REORDER_WINDOW <= seq <= o_last + REORDER_WINDOW:
+                break
+        else:
+            return False
+        del others[i]
+        if not st.flagged and st.restart_lost is not None:
+            # the current numbering was counted as a restart when it appeared: it was not
+            self.restarts -= 1
+            self.lost_after_restart -= st.restart_lost
+            self.last_restart_rx = None
+        others.append([st.epoch, st.last_seq, None, True])
+        st.epoch, st.last_seq, st.restart_lost, st.flagged = o_epoch, o_last, None, True
+        flagged = 1 + sum(1 for o in others if o[3])
+        st.senders = max(st.senders, flagged)
+        self.senders = max(self.senders, st.senders)
+        return True
 
     # -- decoding ----------------------------------------------------------------------
     def decode(self, frames: Sequence[Any], rx_t: float) -> SampleBatch | None:
@@ -418,6 +541,7 @@ class Decoder:
         """
         out: list[SampleBatch] = []
         rx = float(rx_t)
+        self._rx = rx
         pending: list[bytes] = []
         fast = self.fmt == "auto"
         for frames in messages:
@@ -434,13 +558,14 @@ class Decoder:
                     self.reject("empty")
                     continue
                 if nparts > MAX_PARTS:
-                    self.reject("too_many_parts")
+                    self.reject("too_many_parts", example=f"({nparts} frames)")
                     continue
                 self._accept(self._decode_slow(frames, rx), out)
             except Reject as exc:
-                self.reject(exc.reason)
+                self.reject(exc.reason, example=_frames_example(frames))
+                self._account_rejected_frames(frames)
             except Exception:  # noqa: BLE001 - the loop must never see a decoder bug
-                self.reject("internal_error")
+                self.reject("internal_error", example=_frames_example(frames))
         if pending:
             try:
                 self._singles(pending, rx, out)
@@ -451,8 +576,8 @@ class Decoder:
         return out
 
     def _load_all(self, payloads: list[bytes]) -> list[Any]:
-        """Parse single-frame JSON messages; a frame that fails is counted and its slot
-        holds ``_BAD``.
+        """Parse single-frame JSON messages; a frame that fails holds a :class:`_Bad`
+        with the reason in its slot.
 
         Fast path: when every frame starts with ``{``, ends with ``}`` and holds no other
         brace, the frames joined by commas inside ``[...]`` parse as a list whose items are
@@ -481,17 +606,14 @@ class Decoder:
         loads = json.loads
         for f in payloads:
             if len(f) > max_bytes:
-                self.reject("oversize")
-                res.append(_BAD)
+                res.append(_OVERSIZE)
             elif not f:
-                self.reject("empty")
-                res.append(_BAD)
+                res.append(_EMPTY)
             else:
                 try:
                     res.append(loads(f))
                 except (ValueError, RecursionError):
-                    self.reject("bad_json")
-                    res.append(_BAD)
+                    res.append(_BAD_JSON)
         return res
 
     def _singles(self, payloads: list[bytes], rx: float, out: list[SampleBatch]) -> None:
@@ -503,6 +625,9 @@ class Decoder:
         run_seq: int | None = None
         account = self._account
         seq_state = self._seq.get("")
+        a_min, a_max = ANGLE_MIN_DEG, ANGLE_MAX_DEG
+        p_min, p_max = POWER_MIN_DB, POWER_MAX_DB
+        seq_limit = SEQ_LIMIT
 
         def flush() -> None:
             if run_a:
@@ -517,8 +642,9 @@ class Decoder:
                 run_a.clear()
                 run_p.clear()
 
-        for obj in self._load_all(payloads):
-            if obj is _BAD:
+        for payload, obj in zip(payloads, self._load_all(payloads), strict=True):
+            if type(obj) is _Bad:
+                self.reject(obj.reason, example=payload)
                 continue
             try:
                 if type(obj) is dict and "v" not in obj and "t0" not in obj:
@@ -538,19 +664,25 @@ class Decoder:
                     tt = type(t)
                     if ((ta is float or ta is int) and (tp is float or tp is int)
                             and (tt is float or tt is int)
-                            and -180.0 <= a < 360.0 and -200.0 <= p <= 60.0
+                            and a_min <= a < a_max and p_min <= p <= p_max
                             and -1e300 < t < 1e300
-                            and (epoch is None or type(epoch) is str)):
+                            and (epoch is None or type(epoch) is str)
+                            and (seq is None or (type(seq) is int
+                                                 and 0 <= seq < seq_limit))):
                         if seq is not None:
-                            if type(seq) is not int or not 0 <= seq < 2 ** 63:
-                                raise Reject("bad_type", "seq")
                             # in-order fast case inline; anything else goes to _account
                             if (seq_state is not None and seq_state.epoch == epoch
-                                    and seq == seq_state.last_seq + 1):
+                                    and seq == seq_state.last_seq + 1
+                                    and not self._unnumbered):
                                 seq_state.last_seq = seq
                             else:
-                                account("", seq, epoch)
+                                why = account("", seq, epoch)
                                 seq_state = self._seq.get("")
+                                if why is not None:
+                                    self.rejected[why] = self.rejected.get(why, 0) + 1
+                                    if why not in self.reject_examples:
+                                        self.reject_examples[why] = excerpt(payload)
+                                    continue
                         key = (epoch, cal)
                         if key != run_key:
                             flush()
@@ -567,14 +699,14 @@ class Decoder:
                 self._accept(batch, out)
                 seq_state = self._seq.get("")
             except Reject as exc:
-                self.reject(exc.reason)
+                self.reject(exc.reason, example=payload)
                 self._account_rejected(obj)
                 seq_state = self._seq.get("")
             except Exception:  # noqa: BLE001
-                self.reject("internal_error")
+                self.reject("internal_error", example=payload)
         flush()
 
-    def _account_rejected(self, obj: Any) -> None:
+    def _account_rejected(self, obj: Any, stream: str = "") -> None:
         """A rejected message whose ``seq`` can be read still advances the numbering, so
         it is not counted a second time as lost."""
         if type(obj) is dict:
@@ -582,12 +714,36 @@ class Decoder:
                 seq, epoch = _seq_epoch(obj)
             except Reject:
                 return
-            self._account("", seq, epoch)
+            if seq is not None:
+                self._unnumbered -= 1  # this refusal is numbered after all
+                self._account(stream, seq, epoch)
+
+    def _account_rejected_frames(self, frames: Sequence[Any]) -> None:
+        """:meth:`_account_rejected` for a multi-frame message (its JSON header or
+        payload is parsed again: only refused messages pay for this)."""
+        try:
+            n = len(frames)
+            if n < 2 or self.fmt != "auto":
+                return
+            if n == 3:
+                stream, head = _topic(frames[0]), frames[1]
+            elif memoryview(frames[0]).nbytes and memoryview(frames[0])[0] == 0x7B:
+                stream, head = "", frames[0]
+            else:
+                stream, head = _topic(frames[0]), frames[1]
+            if memoryview(head).nbytes > self.max_message_bytes:
+                return
+            obj = json.loads(bytes(head))
+        except Exception:  # noqa: BLE001 - unreadable: stays unnumbered
+            return
+        self._account_rejected(obj, stream)
 
     def _accept(self, batch: SampleBatch, out: list[SampleBatch]) -> None:
+        why = self._account(batch.stream, batch.seq, batch.epoch)
+        if why is not None:
+            raise Reject(why)
         self.messages += 1
         self.samples += len(batch)
-        self._account(batch.stream, batch.seq, batch.epoch)
         out.append(batch)
 
     def _decode_slow(self, frames: Sequence[Any], rx_t: float) -> SampleBatch:
@@ -664,6 +820,36 @@ def merge_batches(batches: list[SampleBatch], max_samples: int = MERGE_SAMPLES
 
 def _topic(frame: Any) -> str:
     return bytes(frame).decode("utf-8", "replace")
+
+
+def excerpt(data: Any, limit: int = EXAMPLE_BYTES) -> str:
+    """The start of a refused message as printable text (bytes decoded as UTF-8 with
+    escapes; ``...`` marks a cut) -- enough for a publisher's author to recognise it."""
+    if data is None:
+        return ""
+    if isinstance(data, str):
+        text = data
+    else:
+        try:
+            raw = bytes(memoryview(data)[:limit * 4])
+        except TypeError:
+            return str(data)[:limit]
+        text = raw.decode("utf-8", "backslashreplace")
+    return text if len(text) <= limit else text[:limit] + "..."
+
+
+def _frames_example(frames: Any) -> str:
+    """The example kept for a refused multi-frame message: its JSON part."""
+    try:
+        n = len(frames)
+        if n == 0:
+            return ""
+        if n == 1:
+            return excerpt(frames[0])
+        head = frames[-2] if n <= 3 else frames[0]
+        return f"({n} frames) " + excerpt(head)
+    except Exception:  # noqa: BLE001
+        return ""
 
 
 # ---------------------------------------------------------------------------------------
