@@ -1,0 +1,1 @@
+"""The browser view: ``lobewatch serve`` runs screen commands behind textual-serve."""
