@@ -14,6 +14,7 @@ family                                       type     value
 ===========================================  =======  ==================================
 ``lobewatch_peak_angle_degrees``             gauge    main-lobe direction
 ``lobewatch_pointing_error_degrees``         gauge    peak - target, wrapped to +-180
+``lobewatch_pointing_tolerance_degrees``     gauge    allowed offset (when one is set)
 ``lobewatch_hpbw_degrees``                   gauge    half-power beamwidth
 ``lobewatch_side_lobe_level_db``             gauge    highest side lobe re the peak
 ``lobewatch_peak_power_dbm``                 gauge    peak power (calibrated input only)
@@ -90,6 +91,10 @@ class FleetCollector(Collector):
             "lobewatch_pointing_error_degrees",
             "Main-lobe peak minus the target direction, degrees (present with a target)",
             labels=["stream"])
+        tolerance = GaugeMetricFamily(
+            "lobewatch_pointing_tolerance_degrees",
+            "Allowed offset of the peak from the target, degrees (present when set)",
+            labels=["stream"])
         power = GaugeMetricFamily("lobewatch_peak_power_dbm",
                                   "Received power at the main-lobe peak, dBm (calibrated "
                                   "input only)", labels=["stream"])
@@ -130,6 +135,9 @@ class FleetCollector(Collector):
             err = pointing_error_deg(reading)
             if err is not None:
                 pointing.add_metric([name], err)
+            tol = _finite(tick.tolerance_deg)
+            if tol is not None:
+                tolerance.add_metric([name], tol)
             p = _finite(m.peak_power_db)
             if p is not None and tick.calibrated:
                 power.add_metric([name], p)
@@ -146,7 +154,7 @@ class FleetCollector(Collector):
                     seen.add(key)
                     alarm.add_metric([name, a.rule, a.severity], 1.0)
         yield from gauges.values()
-        yield from (pointing, power, samples, lost, rejected, restarts, up, alarm, stamp)
+        yield from (pointing, tolerance, power, samples, lost, rejected, restarts, up, alarm, stamp)
 
 
 def make_registry(stations: Callable[[], Iterable[Station]]) -> CollectorRegistry:
