@@ -54,6 +54,7 @@ class StreamSpec:
     model: dict[str, Any] | None = None
     alarms: dict[str, Any] = field(default_factory=dict)
     extra: dict[str, Any] = field(default_factory=dict)
+    base_dir: str | None = None  # the config file's folder (relative key paths)
 
 
 # -- arguments -----------------------------------------------------------------------------
@@ -243,7 +244,8 @@ def spec_from_table(name: str, table: Any, p: str) -> StreamSpec:
                 v = _number(p, f"{where}.model", k, v)
             model[MODEL_KEYS[k]] = v
     return StreamSpec(name=name, endpoint=endpoint, topic=topic, fmt=fmt, bind=bind,
-                      model=model, alarms=alarms, extra=extra)
+                      model=model, alarms=alarms, extra=extra,
+                      base_dir=str(Path(p).resolve().parent))
 
 
 def stream_specs_from_args(args: argparse.Namespace) -> list[StreamSpec]:

@@ -65,21 +65,39 @@ def _metadata(spec: StreamSpec, args: argparse.Namespace, monitor: Any) -> dict[
             "created_t": time.time(), "settings": settings_record(args, monitor)}
 
 
+def _curve(spec: StreamSpec, args: argparse.Namespace, bind: bool) -> Any:
+    """CURVE keys of one stream: its table's curve_* keys, else the command line's; a
+    bound stream then passes the listening rule (tui.curve_options)."""
+    from stream.curve import curve_from_mapping
+    from tui.curve_options import check_listen, curve_from_args
+    if spec.extra:
+        curve = curve_from_mapping(spec.extra, where=f"[streams.{spec.name}]",
+                                   base_dir=spec.base_dir)
+    else:
+        curve = curve_from_args(args, bind=bind)
+    if bind:
+        check_listen(spec.endpoint, curve=curve, insecure=bool(args.insecure_listen),
+                     what=f"send samples to stream {spec.name}")
+    return curve
+
+
 def build_station(spec: StreamSpec, args: argparse.Namespace, interval_s: float,
                   record_path: str | None = None) -> Station:
     """Source + monitor + recorder for one stream (closed again if a later step fails)."""
     from replay.recorder import Recorder
     from stream.zmq_source import ZmqSource
+    bind = bool(args.bind if spec.bind is None else spec.bind)
+    curve = _curve(spec, args, bind)
     monitor = monitor_for_spec(spec, args)
     recorder = None
     if record_path is not None:
         recorder = Recorder(record_path, _metadata(spec, args, monitor),
                             force=bool(args.force)).attach(monitor)
     try:
-        source = ZmqSource(spec.endpoint, bind=args.bind if spec.bind is None else spec.bind,
-                           topic=spec.topic.encode(), fmt=spec.fmt or args.fmt, hwm=args.hwm,
+        source = ZmqSource(spec.endpoint, bind=bind, topic=spec.topic.encode(),
+                           fmt=spec.fmt or args.fmt, hwm=args.hwm,
                            max_message_bytes=args.max_message_bytes,
-                           stale_after_s=args.stale_after)
+                           stale_after_s=args.stale_after, curve=curve)
     except BaseException:
         if recorder is not None:
             recorder.close()
