@@ -72,7 +72,8 @@ def pointing_error_deg(reading: StationReading) -> float | None:
     target = _finite(tick.target_deg)
     if peak is None or target is None:
         return None
-    return (peak - target + 180.0) % 360.0 - 180.0
+    err = peak - target
+    return err if -180.0 <= err < 180.0 else (err + 180.0) % 360.0 - 180.0
 
 
 class FleetCollector(Collector):
