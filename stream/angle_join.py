@@ -25,8 +25,9 @@ The peak difference is taken from the cross-correlation of the two directions' p
 rather than one noisy peak sample; the correlation's maximum is then refined by least
 squares over the forward pattern's main lobe (a finite window biases the correlation
 peak towards zero shift).  Each consecutive pair of opposite sweeps gives one
-estimate; the reported lag is their median and its uncertainty the standard error
-s / sqrt(n) of the last pairs (n >= 2).
+estimate; the reported lag is the median of the last pairs and its uncertainty the
+standard error of that median, 1.2533 x 1.4826 MAD / sqrt(n) (n >= 2; normal-data
+constants, so one disturbed pair neither moves the lag nor inflates its uncertainty).
 
 References
 ----------
@@ -288,7 +289,10 @@ def estimate_lag(block_t: np.ndarray, power_db: np.ndarray, tel_t: np.ndarray,
     if not ests:
         return None
     last = np.array(ests[-max_pairs:])
-    sigma = float(np.std(last, ddof=1) / math.sqrt(last.size)) if last.size >= 2 else None
+    sigma = None
+    if last.size >= 2:  # standard error of a median, from the MAD (robust to one bad pair)
+        mad = float(np.median(np.abs(last - np.median(last))))
+        sigma = 1.2533 * 1.4826 * mad / math.sqrt(last.size)
     return LagEstimate(float(np.median(last)), sigma, int(last.size),
                        float(np.median(rates[-max_pairs:])))
 
@@ -373,6 +377,14 @@ class AngleJoin:
             self._hist_p = np.concatenate((self._hist_p, p))
             keep = self._hist_t >= self._hist_t[-1] - self.history_s
             self._hist_t, self._hist_p = self._hist_t[keep], self._hist_p[keep]
+
+    def retime(self, delta_s: float, since_t: float = -math.inf) -> None:
+        """Shift the blocks at or after ``since_t`` that are not yet emitted (and the lag
+        history) by ``delta_s``: the IQ time base found a better anchor for them."""
+        self._pend_t = np.where(self._pend_t >= since_t, self._pend_t + delta_s, self._pend_t)
+        self._hist_t = np.where(self._hist_t >= since_t, self._hist_t + delta_s, self._hist_t)
+        if self._first_block_t is not None and self._first_block_t >= since_t:
+            self._first_block_t += delta_s
 
     def _update_estimate(self) -> None:
         runs = sweep_runs(self._tel_t, self._tel_a, self.config.min_sweep_deg)

@@ -17,6 +17,7 @@ import numpy as np
 
 from stream.array_model import ArrayModel
 from stream.batch import SampleBatch
+from stream.bearing import BearingConvention
 from stream.pattern import measure
 from stream.tick import Event, Reference, SourceStats, Tick
 
@@ -40,6 +41,7 @@ class Monitor:
         self.target_deg = target_deg
         self.tolerance_deg = tolerance_deg
         self.reference: Reference | None = None
+        self.bearing: BearingConvention | None = None  # array angle -> compass bearing
         self.calibrated = True
         self.last_sample_t: float | None = None
         self.last_tick: Tick | None = None
@@ -156,6 +158,7 @@ class Monitor:
             sweep_peaks_deg=peaks, sweep_peak_t=peak_t, last_sample_t=self.last_sample_t,
             source=source, target_deg=self.target_deg, tolerance_deg=self.tolerance_deg,
             reference=self.reference, expected_hpbw_deg=expected, calibrated=self.calibrated,
+            bearing=self.bearing,
         )
         events = list(self._pending)
         self._pending.clear()
