@@ -206,3 +206,27 @@ def test_listen_address_defaults_to_loopback_and_refuses_others_without_the_flag
     warn = io.StringIO()
     assert parse_listen("0.0.0.0:9108", insecure=True, warn=warn) == ("0.0.0.0", 9108)
     assert warn.getvalue().count("\n") == 1 and "without authentication" in warn.getvalue()
+
+
+def test_replay_serves_its_monitor_under_the_recorded_stream_name():
+    from tui.cli import build_parser
+    from tui.fleet_options import start_session_metrics
+    st = fed_station("x", seconds=2.0)
+    args = build_parser().parse_args(["replay", "s.lwsession", "--metrics-listen",
+                                      "127.0.0.1:0"])
+    names = []
+    for meta, path in (({"source": {"stream": "north"}}, "a/b.lwsession"),
+                       ({}, "site 3/roof west.lwsession")):
+        server = start_session_metrics(args, meta, path, st.monitor)
+        try:
+            st.monitor.tick(T0 + 10.0, SourceStats(state="receiving"))
+            with urllib.request.urlopen(server.url, timeout=5) as resp:
+                fams = {f.name: f for f in text_string_to_metric_families(resp.read().decode())}
+        finally:
+            server.close()
+        names.append({s.labels["stream"] for s in fams["lobewatch_stream_up"].samples})
+        assert value(fams, "lobewatch_peak_angle_degrees", stream=next(iter(names[-1]))) == \
+            st.monitor.last_tick.metrics.peak_angle_deg
+    assert names == [{"north"}, {"roof-west"}]
+    no_listen = build_parser().parse_args(["replay", "s.lwsession"])
+    assert start_session_metrics(no_listen, {}, "s.lwsession", st.monitor) is None

@@ -311,3 +311,20 @@ def session_path(record_dir: str, name: str) -> Path:
         raise UserError(f"--record-dir {record_dir}: cannot create ({exc.strerror}); pick "
                         "a writable folder") from None
     return d / f"{name}{SUFFIX}"
+
+
+def start_session_metrics(args: argparse.Namespace, meta: dict[str, Any], path: str,
+                          monitor: Any) -> Any:
+    """``--metrics-listen`` for a replay: one stream named as recorded (``--record-dir``
+    recordings keep their stream name), else after the file; ``None`` without it."""
+    if not getattr(args, "metrics_listen", None):
+        return start_metrics_from_args(args, list)  # refuses a lone --insecure-listen
+    import re
+
+    from replay.fleet import NAME_PATTERN, Station
+    source = meta.get("source") if isinstance(meta.get("source"), dict) else {}
+    name = str(source.get("stream") or "")
+    if not NAME_PATTERN.match(name):
+        name = re.sub(r"[^A-Za-z0-9_.-]", "-", Path(path).stem).strip("-._")[:64] or "replay"
+    station = Station(name, monitor)
+    return start_metrics_from_args(args, lambda: [station])

@@ -18,12 +18,14 @@ from replay.session import SessionReader
 from stream.errors import UserError
 from stream.monitor import Monitor
 from tui.cli import UsageError
+from tui.fleet_options import add_metrics_arguments, start_session_metrics
 from tui.options import add_pipeline_arguments, add_screen_arguments, build_monitor
 
 _MODEL_DESTS = ("elements", "spacing_wl", "element_exp", "steer_deg", "taper")
 _ESTIMATOR_DESTS = ("bin_deg", "averaging", "tau_s", "sweeps_k", "bin_max_age_s")
 _OWN_DESTS = ("file", "speed", "headless", "interval", "warmup", "start", "func", "command",
-              "_defaults", "bell", "on_alarm", "fail_on", "on_alarm_timeout_s")
+              "_defaults", "bell", "on_alarm", "fail_on", "on_alarm_timeout_s",
+              "metrics_listen", "insecure_listen")
 
 
 def register(subparsers: Any) -> None:
@@ -49,6 +51,7 @@ def register(subparsers: Any) -> None:
                    help="begin S seconds into the session")
     add_screen_arguments(p)
     add_pipeline_arguments(p)
+    add_metrics_arguments(p)  # --metrics-listen (tui/fleet_options.py)
     defaults = {a.dest: a.default for a in p._actions if a.dest != "help"}
     p.set_defaults(func=run, _defaults=defaults)
 
@@ -109,17 +112,18 @@ def run(args: argparse.Namespace) -> int:
     speed = args.speed if args.speed is not None else (math.inf if args.headless else 1.0)
     player = Player(args.file, monitor, speed=speed, interval_s=args.interval,
                     warmup_s=args.warmup, hold_at_end=not args.headless)
+    metrics = None
     try:
+        metrics = start_session_metrics(args, meta, args.file, monitor)  # Prometheus
         if args.start:
             player.seek_to(player.t_start + args.start)
         if args.headless:
             from tui.headless import run_headless
             return int(run_headless(player, monitor, out=sys.stdout,
                                     fail_on=getattr(args, "fail_on", None)) or 0)
-        import tui.app as app
-        if hasattr(app, "run_app"):
-            return int(app.run_app(args, monitor, driver=player, mode="replay") or 0)
-        app.LobewatchApp(monitor, player, mode="replay").run()
-        return 0
+        from tui.options import beam_options_from_args, run_app
+        return run_app(monitor, player, beam_options_from_args(args, "replay"))
     finally:
+        if metrics is not None:
+            metrics.close()
         player.close()
