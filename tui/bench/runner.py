@@ -21,7 +21,8 @@ from typing import Any
 
 from tui.bench.figures import Progress, figure, quiet
 
-GROUPS: tuple[str, ...] = ("metrics", "naive", "ingest", "latency", "redraw", "replay")
+GROUPS: tuple[str, ...] = ("metrics", "naive", "ingest", "latency", "redraw", "replay",
+                           "curve")
 
 #: The figures each group yields (a failed group reports these with no value).
 GROUP_FIGURES: dict[str, tuple[str, ...]] = {
@@ -34,6 +35,7 @@ GROUP_FIGURES: dict[str, tuple[str, ...]] = {
     "latency": ("latency_p50_ms", "latency_p99_ms"),
     "redraw": ("redraw_median_ms", "redraw_p99_ms"),
     "replay": ("replay_sps", "replay_raw_sps", "replay_ratio"),
+    "curve": ("ingest_curve_sps", "ingest_curve_ratio"),  # tui/bench/curve.py
 }
 
 # Targets (issue 7, on the project's 2-core machine).
@@ -220,6 +222,9 @@ def run_bench(quick: bool = False, only: tuple[str, ...] | None = None,
         guarded(("redraw",), _redraw)
     if "replay" in chosen:
         guarded(("replay",), _replay)
+    if "curve" in chosen:
+        from tui.bench.curve import run_group
+        guarded(("curve",), run_group)
     order = [name for g in GROUPS for name in GROUP_FIGURES[g]]
     ordered = {k: figs[k] for k in order if k in figs}
     ordered.update({k: v for k, v in figs.items() if k not in ordered})
