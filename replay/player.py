@@ -10,10 +10,16 @@ re-emitted, the monitor's own alarm engine judges again (possibly with other
 thresholds).  A session without ticks (an imported file) is ticked on a grid every
 ``interval_s`` of recorded time, plus once at its end.
 
-Seeking cannot rewind an estimator, so a seek resets the pipeline and replays the
-``warmup_s`` seconds before the target as fast as possible: by the target the rolling
-pattern has forgotten the reset (an exponential average with time constant tau keeps
-e^-5 < 1 % of its state after 5 tau; see docs/session-format.md).
+Seeking is exact by default: the monitor then holds, at the target, the very state
+the straight-through run had there (pattern, sweep history, alarm hold times), so the
+readouts after a seek are the live run's.  A forward seek plays the rows up to the
+target as fast as possible; a backward seek cannot rewind an estimator, so it restarts
+the pipeline and plays from the start of the session.  :attr:`Player.seeking` is true
+while that runs (the screen says it is catching up).  With an explicit ``warmup_s``
+a seek instead replays only that window before the target (quicker on long sessions,
+approximate: an exponential average with time constant tau keeps e^-5 < 1 % of its
+reset state after 5 tau, but the sweep count starts again; :attr:`Player.approximate`
+says so; see docs/session-format.md).
 """
 
 from __future__ import annotations
@@ -136,7 +142,8 @@ class PlaybackPosition(NamedTuple):
 
 
 def default_warmup_s(monitor: Any) -> float:
-    """Seconds to replay before a seek target so the rolling pattern is settled."""
+    """Seconds to replay before a seek target so the rolling pattern is settled (for an
+    approximate, windowed seek)."""
     cfg = getattr(getattr(monitor, "estimator", None), "config", None)
     if cfg is None:
         return SWEEPS_WARMUP_S
@@ -151,7 +158,8 @@ class Player:
     ``speed`` is the ratio of recorded time to wall time (``math.inf``: unpaced);
     ``clock`` is the wall clock used for pacing (injected for tests).  With
     ``hold_at_end`` (the TUI) :meth:`run` waits at the end of the session for a seek
-    or the stop event instead of returning.
+    or the stop event instead of returning.  ``warmup_s=None`` (default) makes seeks
+    exact; a number makes them replay only that many seconds before the target.
     """
 
     def __init__(self, path: str | os.PathLike[str], monitor: Any, speed: float = 1.0,
@@ -165,7 +173,11 @@ class Player:
         if not interval_s > 0:
             raise ValueError(f"interval_s must be positive, got {interval_s}")
         self.interval_s = float(interval_s)
-        self.warmup_s = default_warmup_s(monitor) if warmup_s is None else float(warmup_s)
+        self.warmup_s = None if warmup_s is None else float(warmup_s)
+        #: True while a seek is being played up to its target.
+        self.seeking = False
+        #: True after a windowed (approximate) seek, until the next exact restart.
+        self.approximate = False
         self.hold_at_end = hold_at_end
         self.speed = self._check_speed(speed)
         self.reader = SessionReader(self.path)
@@ -280,17 +292,18 @@ class Player:
         if item.t > self._t:
             self._t = item.t
 
-    def _apply_batch_run(self, first: SessionItem) -> int:
+    def _apply_batch_run(self, first: SessionItem, until: float = math.inf) -> int:
         """Apply ``first`` (a batch row) and the batch rows right behind it with one
-        monitor call (unpaced, ticked sessions only: nothing comes between them);
-        returns the rows applied.  The monitor ends in the state row-by-row gives."""
+        monitor call (unpaced, ticked sessions only: nothing comes between them), none
+        later than ``until``; returns the rows applied.  The monitor ends in the state
+        row-by-row gives."""
         items = [first]
         try:
             while len(items) < _RUN:
                 nxt = self._next()
                 if nxt is None:
                     break
-                if nxt.kind != "batch":
+                if nxt.kind != "batch" or nxt.t > until:
                     self._peek = nxt
                     break
                 items.append(nxt)
@@ -389,6 +402,7 @@ class Player:
         """Jump to recorded time ``t`` (clamped to the session)."""
         if self._running:
             self._seek_request = t
+            self.seeking = True
             self._poke()
         else:
             for _ in self._seek_steps(t):
@@ -414,7 +428,58 @@ class Player:
     def _seek_steps(self, target: float) -> Iterator[None]:
         """Do a seek, yielding every few rows so an event loop stays responsive."""
         target = min(max(float(target), self.t_start), self.t_end)
-        w0 = max(self.t_start, target - self.warmup_s)
+        self.seeking = True
+        try:
+            if self.warmup_s is None:
+                yield from self._seek_exact(target)
+            else:
+                yield from self._seek_window(target, self.warmup_s)
+        finally:
+            self.seeking = self._seek_request is not None
+
+    def _restart(self) -> None:
+        """The pipeline and the reading position as when the player was opened."""
+        self._reset_pipeline()
+        m = self.monitor
+        m.target_deg, m.tolerance_deg = self._initial_target
+        self._open_items(0)
+        self._peek = None
+        self.ended = False
+        self._next_grid = 1
+        self._last_grid_t = None
+        self._t = self.t_start
+        self.approximate = False
+
+    def _seek_exact(self, target: float) -> Iterator[None]:
+        """Play every row up to ``target`` (from the start when going back)."""
+        if target < self._t or self.ended or self.approximate:
+            self._restart()
+        runs = not self.grid and hasattr(self.monitor, "ingest_many")
+        n = 0
+        while (item := self._next()) is not None:
+            if item.t > target:
+                self._peek = item
+                break
+            if runs and item.kind == "batch":
+                n += self._apply_batch_run(item, until=target)
+            else:
+                self._apply(item)
+                n += 1
+            if n >= _CHUNK * 8:
+                n = 0
+                yield None
+        if self.grid:
+            self._grid_ticks_before(target, inclusive=True)
+        if self._peek is None:
+            self._finish_grid()
+            self.ended = True
+        self._t = target
+        self._reanchor()
+
+    def _seek_window(self, target: float, warmup_s: float) -> Iterator[None]:
+        """Reset and replay only ``warmup_s`` seconds before ``target`` (approximate)."""
+        self.approximate = True
+        w0 = max(self.t_start, target - warmup_s)
         start_id = self.reader.start_id(w0) if w0 > self.t_start else 0
         self._reset_pipeline()
         m = self.monitor

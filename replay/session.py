@@ -27,6 +27,15 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
+from replay.codec import (
+    BLOCK_MAX_BATCHES,
+    BLOCK_MAX_SAMPLES,
+    PLAIN,
+    CodecError,
+    decode_batch,
+    decode_block,
+    encode_block,
+)
 from stream.batch import SampleBatch
 from stream.beam import METRIC_KEYS, BeamMetrics
 from stream.errors import InputFileError, UserError
@@ -35,7 +44,9 @@ from stream.tick import Event, Reference, SourceStats
 #: ``PRAGMA application_id`` of a lobewatch session ("LbWs" in ASCII).
 APPLICATION_ID: int = 0x4C625773
 #: Session format version, stored as ``PRAGMA user_version`` and in ``meta``.
-FORMAT_VERSION: int = 1
+#: 1: every sample column as float64.  2: compact columns (``batches.enc``), see
+#: :mod:`replay.codec`; version 1 files are still read.
+FORMAT_VERSION: int = 2
 #: File name extension of session files.
 SUFFIX: str = ".lwsession"
 
@@ -43,12 +54,13 @@ _SQLITE_MAGIC = b"SQLite format 3\x00"
 
 _SCHEMA = """
 CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
-CREATE TABLE batches (
-    id INTEGER PRIMARY KEY, rx_t REAL NOT NULL, t_first REAL, t_last REAL,
-    n INTEGER NOT NULL, seq INTEGER, epoch TEXT, stream TEXT NOT NULL DEFAULT '',
-    calibrated INTEGER NOT NULL, t BLOB NOT NULL, angle_deg BLOB NOT NULL,
-    power_db BLOB NOT NULL, crc INTEGER NOT NULL);
-CREATE INDEX batches_rx_t ON batches (rx_t);
+CREATE TABLE blocks (
+    id INTEGER PRIMARY KEY, id_last INTEGER NOT NULL, rx_t REAL NOT NULL,
+    rx_t_last REAL NOT NULL, t_first REAL, t_last REAL, n INTEGER NOT NULL, epoch TEXT,
+    stream TEXT NOT NULL DEFAULT '', calibrated INTEGER NOT NULL, enc TEXT NOT NULL,
+    counts BLOB NOT NULL, rx BLOB NOT NULL, seq BLOB, t BLOB NOT NULL,
+    angle_deg BLOB NOT NULL, power_db BLOB NOT NULL, crc INTEGER NOT NULL);
+CREATE INDEX blocks_rx_t ON blocks (rx_t);
 CREATE TABLE ticks (id INTEGER PRIMARY KEY, t REAL NOT NULL, source TEXT NOT NULL,
     crc INTEGER NOT NULL);
 CREATE INDEX ticks_t ON ticks (t);
@@ -59,7 +71,24 @@ CREATE TABLE refs (event_id INTEGER PRIMARY KEY, angle_deg BLOB NOT NULL,
     power_db BLOB NOT NULL, metrics TEXT NOT NULL, crc INTEGER NOT NULL);
 """
 
-_TABLES = ("meta", "batches", "ticks", "events", "refs")
+#: The version 1 table of batches (one row per batch, float64 columns); read only.
+_SCHEMA_V1_BATCHES = """
+CREATE TABLE batches (
+    id INTEGER PRIMARY KEY, rx_t REAL NOT NULL, t_first REAL, t_last REAL,
+    n INTEGER NOT NULL, seq INTEGER, epoch TEXT, stream TEXT NOT NULL DEFAULT '',
+    calibrated INTEGER NOT NULL, t BLOB NOT NULL, angle_deg BLOB NOT NULL,
+    power_db BLOB NOT NULL, crc INTEGER NOT NULL);
+CREATE INDEX batches_rx_t ON batches (rx_t);
+"""
+
+_BATCH_COLS = ("id, rx_t, t_first, t_last, n, seq, epoch, stream, calibrated, t, angle_deg, "
+               "power_db, crc")
+_BLOCK_COLS = ("id, id_last, rx_t, n, epoch, stream, calibrated, enc, counts, rx, seq, t, "
+               "angle_deg, power_db, crc")
+
+_TABLES = ("meta", "blocks", "ticks", "events", "refs")
+_TABLES_V1 = ("meta", "batches", "ticks", "events", "refs")
+_HEAD2 = struct.Struct("<dqqq")
 
 _HEAD = struct.Struct("<dqqq")
 
@@ -89,11 +118,22 @@ def _f8(a: np.ndarray) -> bytes:
 
 def batch_crc(rx_t: float, n: int, seq: int | None, calibrated: bool, epoch: str | None,
               stream: str, t: bytes, a: bytes, p: bytes) -> int:
-    """CRC-32 (zlib) over a batch row's receive time, count, seq, calibrated flag, epoch,
-    stream and the three blobs (t_first/t_last are derived and not covered)."""
+    """CRC-32 (zlib) over a version 1 batch row's receive time, count, seq, calibrated
+    flag, epoch, stream and the three blobs (t_first/t_last are derived, not covered)."""
     c = zlib.crc32(_HEAD.pack(rx_t, n, -1 if seq is None else seq, 1 if calibrated else 0))
     c = zlib.crc32(f"{'' if epoch is None else epoch}\x1f{stream}".encode(), c)
     return zlib.crc32(p, zlib.crc32(a, zlib.crc32(t, c)))
+
+
+def block_crc(rx_t: float, n: int, k: int, calibrated: bool, epoch: str | None, stream: str,
+              enc: str, *blobs: bytes | None) -> int:
+    """CRC-32 (zlib) over a block row: first receive time, samples, batches, calibrated
+    flag, epoch, stream, encoding and every blob as stored (format version 2)."""
+    c = zlib.crc32(_HEAD2.pack(rx_t, n, k, 1 if calibrated else 0))
+    c = zlib.crc32(f"{'' if epoch is None else epoch}\x1f{stream}\x1f{enc}".encode(), c)
+    for b in blobs:
+        c = zlib.crc32(b"\x1e" if b is None else b, c)
+    return c
 
 
 def text_crc(t: float, *texts: str) -> int:
@@ -152,13 +192,18 @@ class SessionWriter:
 
     Rows are buffered and written with ``executemany`` on :meth:`commit`; nothing is
     durable before a commit.  Refuses to overwrite an existing file unless ``force``.
-    Use from one thread only (the recorder gives it its own thread).
+    Use from one thread only (the recorder gives it its own thread).  ``compact`` stores
+    sample columns in the smallest exact encoding, ``compress`` also zlib-compresses them
+    (see :mod:`replay.codec`).
     """
 
     def __init__(self, path: str | os.PathLike[str], metadata: dict[str, Any] | None = None,
                  force: bool = False, *, synchronous: str = "FULL",
-                 check_same_thread: bool = True) -> None:
+                 check_same_thread: bool = True, compact: bool = True,
+                 compress: bool = True) -> None:
         self.path = os.fspath(path)
+        self.compact = compact
+        self.compress = compress
         if os.path.isdir(self.path):
             raise UserError(f"{self.path}: is a directory; give a file name ending in {SUFFIX}")
         if os.path.exists(self.path) and not force:
@@ -182,7 +227,10 @@ class SessionWriter:
         self._con: sqlite3.Connection | None = con
         self.meta = meta
         self._next_id = 1
-        self._batches: list[tuple] = []
+        self._batches: list[tuple] = []  # block rows ready to insert
+        self._blk: list[SampleBatch] = []  # batches of the block being filled
+        self._blk_id = 0
+        self._blk_samples = 0
         self._ticks: list[tuple] = []
         self._events: list[tuple] = []
         self._refs: list[tuple] = []
@@ -263,27 +311,57 @@ class SessionWriter:
         return i
 
     def write_batch(self, batch: SampleBatch) -> int:
-        """Queue one batch; returns its row id."""
+        """Queue one batch; returns its row id.  Consecutive batches of one stream are
+        stored together as one block row (closed by a tick, an event, a commit, a
+        change of stream, epoch or calibration, or its size)."""
         n = len(batch)
-        tb, ab, pb = _f8(batch.t), _f8(batch.angle_deg), _f8(batch.power_db)
-        rx_t = float(batch.rx_t)
-        t_first = float(batch.t[0]) if n else None
-        t_last = float(batch.t[-1]) if n else None
-        seq = None if batch.seq is None else int(batch.seq)
+        blk = self._blk
+        if blk and (blk[0].stream != batch.stream or blk[0].epoch != batch.epoch
+                    or blk[0].calibrated != batch.calibrated
+                    or (blk[0].seq is None) != (batch.seq is None)
+                    or self._blk_samples + n > BLOCK_MAX_SAMPLES
+                    or len(blk) >= BLOCK_MAX_BATCHES):
+            self._close_block()
         i = self._take_id()
-        stream = batch.stream or ""
-        self._batches.append((i, rx_t, t_first, t_last, n, seq, batch.epoch, stream,
-                              1 if batch.calibrated else 0, tb, ab, pb,
-                              batch_crc(rx_t, n, seq, batch.calibrated, batch.epoch, stream,
-                                        tb, ab, pb)))
-        self.pending_bytes += 3 * 8 * n + 64
+        if not self._blk:
+            self._blk_id = i
+        self._blk.append(batch)
+        self._blk_samples += n
+        self.pending_bytes += 24 * n + 16
         self.samples_written += n
         return i
+
+    def _close_block(self) -> None:
+        blk = self._blk
+        if not blk:
+            return
+        first = blk[0]
+        enc, cb, rb, sb, tb, ab, pb = encode_block(
+            [b.t for b in blk], [b.angle_deg for b in blk], [b.power_db for b in blk],
+            [float(b.rx_t) for b in blk],
+            None if first.seq is None else [int(b.seq) for b in blk],  # type: ignore[arg-type]
+            self.compact, self.compress)
+        n = self._blk_samples
+        ne = [b for b in blk if len(b)]
+        t_first = float(ne[0].t[0]) if ne else None
+        t_last = float(ne[-1].t[-1]) if ne else None
+        rx0, rx1 = float(first.rx_t), float(blk[-1].rx_t)
+        stream = first.stream or ""
+        cal = bool(first.calibrated)
+        crc = block_crc(rx0, n, len(blk), cal, first.epoch, stream, enc, cb, rb, sb, tb, ab, pb)
+        self._batches.append((self._blk_id, self._blk_id + len(blk) - 1, rx0, rx1, t_first,
+                              t_last, n, first.epoch, stream, 1 if cal else 0, enc, cb, rb,
+                              sb, tb, ab, pb, crc))
+        self.pending_bytes += len(tb) + len(ab) + len(pb) + len(cb) + len(rb) + 64 - (
+            24 * n + 16 * len(blk))
+        self._blk = []
+        self._blk_samples = 0
 
     def write_tick(self, t: float, source: SourceStats | dict[str, Any] | None) -> int:
         """Queue one tick time with the source counters at that tick."""
         d = source.to_dict() if isinstance(source, SourceStats) else dict(source or {})
         text = dumps(d)
+        self._close_block()
         i = self._take_id()
         self._ticks.append((i, float(t), text, text_crc(t, text)))
         self.pending_bytes += len(text) + 32
@@ -292,6 +370,7 @@ class SessionWriter:
     def write_event(self, event: Event, reference: Reference | None = None) -> int:
         """Queue one event; a ``reference`` event may carry the captured trace."""
         text = dumps(event.data)
+        self._close_block()
         i = self._take_id()
         self._events.append((i, float(event.t), event.kind, text,
                              text_crc(event.t, event.kind, text)))
@@ -311,7 +390,7 @@ class SessionWriter:
 
     @property
     def has_pending(self) -> bool:
-        return bool(self._batches or self._ticks or self._events or self._refs
+        return bool(self._blk or self._batches or self._ticks or self._events or self._refs
                     or self._meta_updates)
 
     def _require(self) -> sqlite3.Connection:
@@ -324,10 +403,11 @@ class SessionWriter:
         con = self._require()
         if not self.has_pending:
             return
+        self._close_block()
         try:
             con.execute("BEGIN")
             if self._batches:
-                con.executemany("INSERT INTO batches VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)",
+                con.executemany("INSERT INTO blocks VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
                                 self._batches)
             if self._ticks:
                 con.executemany("INSERT INTO ticks VALUES (?,?,?,?)", self._ticks)
@@ -347,7 +427,8 @@ class SessionWriter:
                 pass
             raise UserError(f"{self.path}: writing the session failed ({exc}); check free "
                             "disk space") from None
-        self.rows_written += (len(self._batches) + len(self._ticks) + len(self._events))
+        self.rows_written += (sum(r[1] - r[0] + 1 for r in self._batches) + len(self._ticks)
+                              + len(self._events))
         self._batches.clear()
         self._ticks.clear()
         self._events.clear()
@@ -470,7 +551,7 @@ class SessionReader:
                                      "lobewatch")
             names = {r[0] for r in self._con.execute(
                 "SELECT name FROM sqlite_master WHERE type = 'table'")}
-            missing = [t for t in _TABLES if t not in names]
+            missing = [t for t in (_TABLES_V1 if version < 2 else _TABLES) if t not in names]
             if missing:
                 raise InputFileError(p, f"not a complete lobewatch session (no table "
                                      f"{missing[0]!r}); {_FIX_HINT}")
@@ -497,6 +578,9 @@ class SessionReader:
             raise InputFileError(p, f"session format version {fv} is newer than this "
                                  f"lobewatch reads (up to {FORMAT_VERSION}); upgrade lobewatch")
         self.meta = meta
+        self.format_version = int(version)
+        self._v1 = version < 2
+        self._btable = "batches" if self._v1 else "blocks"
 
     # -- queries -----------------------------------------------------------------------
     def _query(self, sql: str, args: tuple = ()) -> list[tuple]:
@@ -512,23 +596,26 @@ class SessionReader:
     def counts(self) -> dict[str, int]:
         """Row counts per data table (and total samples)."""
         return {
-            "batches": int(self._one("SELECT count(*) FROM batches") or 0),
-            "samples": int(self._one("SELECT total(n) FROM batches") or 0),
+            "batches": int(self._one("SELECT count(*) FROM batches" if self._v1 else
+                                     "SELECT total(id_last - id + 1) FROM blocks") or 0),
+            "samples": int(self._one(f"SELECT total(n) FROM {self._btable}") or 0),
             "ticks": int(self._one("SELECT count(*) FROM ticks") or 0),
             "events": int(self._one("SELECT count(*) FROM events") or 0),
         }
 
     def all_calibrated(self) -> bool:
         """True when every batch carries calibrated power (dBm)."""
-        return bool(self._one("SELECT coalesce(min(calibrated), 1) FROM batches"))
+        return bool(self._one(f"SELECT coalesce(min(calibrated), 1) FROM {self._btable}"))
 
     def time_span(self) -> TimeSpan | None:
         """First and last recorded time (batches, ticks and events), by index."""
         lo: list[float] = []
         hi: list[float] = []
-        for table, col in (("batches", "rx_t"), ("ticks", "t"), ("events", "t")):
+        last = "rx_t" if self._v1 else "rx_t_last"
+        for table, col, col2 in ((self._btable, "rx_t", last), ("ticks", "t", "t"),
+                                 ("events", "t", "t")):
             a = self._one(f"SELECT min({col}) FROM {table}")
-            b = self._one(f"SELECT max({col}) FROM {table}")
+            b = self._one(f"SELECT max({col2}) FROM {table}")
             if a is not None:
                 lo.append(float(a))
                 hi.append(float(b))
@@ -538,7 +625,8 @@ class SessionReader:
 
     def first_sample_t(self) -> float | None:
         """Sample time of the first stored sample (by row order)."""
-        v = self._one("SELECT t_first FROM batches ORDER BY id LIMIT 1")
+        v = self._one(f"SELECT t_first FROM {self._btable} WHERE t_first IS NOT NULL "
+                      "ORDER BY id LIMIT 1")
         return None if v is None else float(v)
 
     @property
@@ -550,21 +638,67 @@ class SessionReader:
         before ``t_from`` (or, for a session without ticks, the batch before it)."""
         row = self._one("SELECT id FROM ticks WHERE t < ? ORDER BY t DESC LIMIT 1", (t_from,))
         if row is None and not self.has_ticks:
-            row = self._one("SELECT id FROM batches WHERE rx_t < ? ORDER BY rx_t DESC LIMIT 1",
-                            (t_from,))
+            if self._v1:
+                row = self._one("SELECT id FROM batches WHERE rx_t < ? ORDER BY rx_t DESC "
+                                "LIMIT 1", (t_from,))
+            else:
+                rows = self._query("SELECT id, rx FROM blocks WHERE rx_t < ? ORDER BY rx_t DESC "
+                                   "LIMIT 1", (t_from,))
+                if rows:
+                    rx = np.frombuffer(rows[0][1], dtype="<f8")
+                    j = int(np.searchsorted(rx, t_from, side="left")) - 1
+                    row = int(rows[0][0]) + max(j, 0)
         return int(row) if row is not None else 0
 
     # -- decoding rows -------------------------------------------------------------------
     def _batch(self, row: tuple) -> SampleBatch:
         (i, rx_t, _tf, _tl, n, seq, epoch, stream, cal, tb, ab, pb, crc) = row
-        if (not isinstance(tb, bytes) or not isinstance(ab, bytes) or not isinstance(pb, bytes)
-                or len(tb) != 8 * n or len(ab) != 8 * n or len(pb) != 8 * n):
-            raise _damaged(self.path, f"batch {i} has the wrong length")
-        if batch_crc(float(rx_t), int(n), seq, bool(cal), epoch, stream or "", tb, ab, pb) != crc:
+        if not isinstance(tb, bytes) or not isinstance(ab, bytes) or not isinstance(pb, bytes):
+            raise _damaged(self.path, f"batch {i} has the wrong type")
+        if batch_crc(float(rx_t), int(n), seq, bool(cal), epoch, stream or "", tb, ab,
+                     pb) != crc:
             raise _damaged(self.path, f"batch {i} fails its checksum")
-        return SampleBatch(np.frombuffer(tb, dtype="<f8"), np.frombuffer(ab, dtype="<f8"),
-                           np.frombuffer(pb, dtype="<f8"), rx_t=float(rx_t), seq=seq,
-                           epoch=epoch, stream=stream or "", calibrated=bool(cal))
+        try:
+            t, a, p = decode_batch(PLAIN, int(n), tb, ab, pb)
+        except CodecError as exc:
+            raise _damaged(self.path, f"batch {i}: {exc}") from None
+        return SampleBatch(t, a, p, rx_t=float(rx_t), seq=seq, epoch=epoch,
+                           stream=stream or "", calibrated=bool(cal))
+
+    def _block(self, row: tuple) -> list[SampleBatch]:
+        """The batches of one version 2 block row (checked, decoded, split)."""
+        (i, i_last, rx_t, n, epoch, stream, cal, enc, cb, rb, sb, tb, ab, pb, crc) = row
+        blobs = (cb, rb, sb, tb, ab, pb)
+        if (not all(isinstance(b, bytes) for b in blobs if b is not None) or cb is None
+                or not isinstance(enc, str)):
+            raise _damaged(self.path, f"block {i} has the wrong type")
+        k = int(i_last) - int(i) + 1
+        if block_crc(float(rx_t), int(n), k, bool(cal), epoch, stream or "", enc,
+                     *blobs) != crc:
+            raise _damaged(self.path, f"block {i} fails its checksum")
+        try:
+            t, a, p, counts, rx, seqs = decode_block(enc, int(n), cb, rb, sb, tb, ab, pb)
+        except CodecError as exc:
+            raise _damaged(self.path, f"block {i}: {exc}") from None
+        if counts.size != k:
+            raise _damaged(self.path, f"block {i} has {counts.size} batches, not {k}")
+        stream = stream or ""
+        cal = bool(cal)
+        if k == 1:
+            return [SampleBatch(t, a, p, rx_t=float(rx[0]),
+                                seq=None if seqs is None else int(seqs[0]), epoch=epoch,
+                                stream=stream, calibrated=cal)]
+        ends = np.cumsum(counts).tolist()
+        rxl = rx.tolist()
+        sql = [None] * k if seqs is None else seqs.tolist()
+        out = []
+        lo = 0
+        for j in range(k):
+            hi = ends[j]
+            out.append(SampleBatch(t[lo:hi], a[lo:hi], p[lo:hi], rx_t=rxl[j], seq=sql[j],
+                                   epoch=epoch, stream=stream, calibrated=cal))
+            lo = hi
+        return out
 
     def _tick(self, row: tuple) -> SourceStats:
         i, t, text, crc = row
@@ -602,9 +736,7 @@ class SessionReader:
             self.start_id(t_from) if t_from is not None else 0)
         streams: list[Iterator[SessionItem]] = []
         if "batch" in kinds:
-            streams.append(SessionItem("batch", r[0], float(r[1]), self._batch(r))
-                           for r in self._rows("SELECT * FROM batches WHERE id > ? ORDER BY id",
-                                               (start,)))
+            streams.append(self._batch_items(start))
         if "tick" in kinds:
             streams.append(SessionItem("tick", r[0], float(r[1]), self._tick(r))
                            for r in self._rows("SELECT * FROM ticks WHERE id > ? ORDER BY id",
@@ -618,9 +750,22 @@ class SessionReader:
         else:
             yield from heapq.merge(*streams, key=lambda it: it.id)
 
+    def _batch_items(self, after_id: int) -> Iterator[SessionItem]:
+        if self._v1:
+            for r in self._rows(f"SELECT {_BATCH_COLS} FROM batches WHERE id > ? ORDER BY id",
+                                (after_id,)):
+                yield SessionItem("batch", r[0], float(r[1]), self._batch(r))
+            return
+        for r in self._rows(f"SELECT {_BLOCK_COLS} FROM blocks WHERE id_last > ? ORDER BY id",
+                            (after_id,)):
+            i0 = r[0]
+            for j, b in enumerate(self._block(r)):
+                if i0 + j > after_id:
+                    yield SessionItem("batch", i0 + j, b.rx_t, b)
+
     def iter_batches(self) -> Iterator[SampleBatch]:
-        for r in self._rows("SELECT * FROM batches ORDER BY id", ()):
-            yield self._batch(r)
+        for item in self._batch_items(0):
+            yield item.value
 
     def events(self) -> list[Event]:
         """All events in recorded order."""

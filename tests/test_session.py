@@ -77,13 +77,49 @@ def test_round_trip_is_exact_and_in_recorded_order(tmp_path):
     assert len(allb) == 2000 and not allb.calibrated
 
 
-def test_plain_sqlite_and_numpy_read_samples(tmp_path):
-    """What docs/session-format.md tells a user to do, with nothing but sqlite3+numpy."""
-    p = write_session(tmp_path / "a.lwsession")
+def _docs_reader_code() -> str:
+    from pathlib import Path
+    text = (Path(__file__).resolve().parent.parent / "docs" / "session-format.md").read_text()
+    part = text.split("## Reading samples yourself", 1)[1]
+    return part.split("```python", 1)[1].split("```", 1)[0]
+
+
+@pytest.mark.parametrize("compress", [True, False])
+def test_plain_sqlite_and_numpy_read_samples(tmp_path, compress):
+    """The reading code in docs/session-format.md, run as printed (sqlite3, zlib and
+    numpy only), gives back every stored value bit for bit."""
+    p = tmp_path / "site-a.lwsession"
+    rng = np.random.default_rng(5)
+    want = []
+    with SessionWriter(p, {}, compress=compress) as w:
+        for k in range(30):
+            b = batch(k)
+            if k % 3 == 1:  # float32-exact values (a source sending float32)
+                b = SampleBatch(b.t, b.angle_deg.astype(np.float32).astype(float),
+                                b.power_db.astype(np.float32).astype(float), rx_t=b.rx_t)
+            if k % 3 == 2:  # raw pairs carry no times: every sample at its receive time
+                b = SampleBatch(np.full(50, b.rx_t), b.angle_deg, b.power_db, rx_t=b.rx_t)
+            if k == 7:  # irregular times
+                b = SampleBatch(T0 + np.sort(rng.uniform(0, 1, 50)), b.angle_deg,
+                                b.power_db, rx_t=b.rx_t)
+            want.append(b)
+            w.write_batch(b)
+            w.write_tick(b.rx_t, SourceStats("receiving", k))
+    cwd = os.getcwd()
+    os.chdir(tmp_path)
+    try:
+        ns: dict = {}
+        exec(_docs_reader_code(), ns)  # noqa: S102 - the documented snippet itself
+    finally:
+        os.chdir(cwd)
+    for name in ("t", "angle_deg", "power_db"):
+        got = ns[name]
+        assert got.dtype == np.float64
+        assert np.array_equal(got, np.concatenate([getattr(b, name) for b in want]))
     con = sqlite3.connect(f"file:{p}?mode=ro", uri=True)
-    rows = con.execute("SELECT t, angle_deg, power_db FROM batches ORDER BY id").fetchall()
-    angle = np.concatenate([np.frombuffer(r[1], dtype="<f8") for r in rows])
-    assert np.array_equal(angle, np.concatenate([batch(k).angle_deg for k in range(40)]))
+    encs = {e for (e,) in con.execute("SELECT enc FROM blocks")}
+    z = "+z" if compress else ""
+    assert {f"tq{z},f8{z},f8{z}", f"tq{z},f4{z},f4{z}", f"base,f8{z},f8{z}"} <= encs
     assert con.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
     assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
     con.close()
@@ -159,7 +195,10 @@ def test_bad_files_give_one_line_errors(tmp_path, case, capsys):
         p.write_bytes(data[: len(data) // 2 + 100])
     elif case == "flipped_blob":
         data = bytearray(good.read_bytes())
-        needle = batch(20).power_db.astype("<f8").tobytes()[:16]
+        con = sqlite3.connect(f"file:{good}?mode=ro&immutable=1", uri=True)
+        needle = con.execute("SELECT power_db FROM blocks ORDER BY id LIMIT 1 OFFSET 20"
+                             ).fetchone()[0][:16]
+        con.close()
         i = bytes(data).find(needle)
         assert i > 0
         data[i + 3] ^= 0x40
@@ -250,3 +289,56 @@ def test_seek_into_one_hour_session_reads_few_rows(tmp_path):
         assert mon.last_tick is not None and mid - 0.1 < mon.last_tick.t <= mid
         assert mon.estimator.samples == 151 * 8  # 15 s of 8-sample batches at 10/s, both ends
         assert player.reader.rows_read < 400  # of 72,060
+
+
+def _write_v1(path, batches, ticks) -> None:
+    """A format version 1 file as the previous lobewatch wrote it (one row per batch,
+    float64 blobs), built here with plain sqlite3 so the old layout stays pinned."""
+    from replay import session as s
+    con = sqlite3.connect(path, isolation_level=None)
+    con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+    con.execute("PRAGMA user_version = 1")
+    shared = [x for x in s._SCHEMA.split(";") if "blocks" not in x and x.strip()]
+    for stmt in shared + [x for x in s._SCHEMA_V1_BATCHES.split(";") if x.strip()]:
+        con.execute(stmt)
+    con.execute("INSERT INTO meta VALUES ('format_version', '1')")
+    i = 0
+    for b, tick_t in zip(batches, ticks, strict=True):
+        i += 1
+        tb, ab, pb = (np.ascontiguousarray(x, "<f8").tobytes()
+                      for x in (b.t, b.angle_deg, b.power_db))
+        con.execute("INSERT INTO batches VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)",
+                    (i, b.rx_t, b.t[0], b.t[-1], len(b), b.seq, b.epoch, b.stream,
+                     int(b.calibrated), tb, ab, pb,
+                     s.batch_crc(b.rx_t, len(b), b.seq, b.calibrated, b.epoch, b.stream,
+                                 tb, ab, pb)))
+        i += 1
+        text = s.dumps(SourceStats("receiving", i).to_dict())
+        con.execute("INSERT INTO ticks VALUES (?,?,?,?)", (i, tick_t, text,
+                                                            s.text_crc(tick_t, text)))
+    con.close()
+
+
+def test_version_1_files_are_still_read_and_replayed(tmp_path, capsys):
+    old = tmp_path / "old.lwsession"
+    bs = [batch(k) for k in range(12)]
+    _write_v1(old, bs, [b.rx_t + 0.01 for b in bs])
+    with SessionReader(old) as r:
+        assert r.format_version == 1
+        got = list(r.iter_batches())
+        assert r.counts() == {"batches": 12, "samples": 600, "ticks": 12, "events": 0}
+        assert r.start_id(bs[5].rx_t + 0.02) == 12  # the tick after batch 6
+    assert all(np.array_equal(g.power_db, w.power_db) and g.seq == w.seq
+               for g, w in zip(got, bs, strict=True))
+    # the same data written now (version 2) replays to the same readouts
+    new = tmp_path / "new.lwsession"
+    with SessionWriter(new, {}) as w:
+        for b in bs:
+            w.write_batch(b)
+            w.write_tick(b.rx_t + 0.01, SourceStats("receiving", 0))
+    outs = []
+    for p in (old, new):
+        assert main(["replay", str(p), "--headless"]) == 0
+        outs.append([ln for ln in capsys.readouterr().out.splitlines()
+                     if ln.startswith('{"type":"metrics"')])
+    assert outs[0] and outs[0] == outs[1]

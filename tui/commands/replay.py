@@ -45,8 +45,10 @@ def register(subparsers: Any) -> None:
                    help="readout spacing for sessions recorded without readouts (imported "
                         f"files), seconds of recorded time (default {DEFAULT_INTERVAL_S})")
     p.add_argument("--warmup", type=float, default=None, metavar="S",
-                   help="seconds replayed before a seek target so the pattern is settled "
-                        "(default 5 x --tau-s, or 30 with --averaging sweeps)")
+                   help="make seeks quicker but approximate: replay only S seconds before "
+                        "a seek target (e.g. 5 x --tau-s).  Default: exact seeks, the "
+                        "readouts after a seek equal a straight-through replay (a seek back "
+                        "replays from the start of the session)")
     p.add_argument("--start", type=float, default=None, metavar="S",
                    help="begin S seconds into the session")
     add_screen_arguments(p)
