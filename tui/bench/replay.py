@@ -73,10 +73,10 @@ def raw_read(path: str) -> tuple[float, int]:
     con = sqlite3.connect(f"file:{path}?mode=ro&immutable=1", uri=True)
     n = 0
     acc = 0.0
-    for tb, ab, pb in con.execute("SELECT t, angle_deg, power_db FROM batches ORDER BY id"):
-        t = np.frombuffer(tb, dtype="<f8")
-        a = np.frombuffer(ab, dtype="<f8")
-        p = np.frombuffer(pb, dtype="<f8")
+    from replay.codec import decode_batch  # format 2 blocks (docs/session-format.md)
+    for m, enc, tb, ab, pb in con.execute(
+            "SELECT n, enc, t, angle_deg, power_db FROM blocks ORDER BY id"):
+        t, a, p = decode_batch(enc, m, tb, ab, pb)
         n += a.size
         acc += t[0] + a[0] + p[0]  # touch the arrays
     con.close()
