@@ -15,6 +15,7 @@ from stream.zmq_source import DEFAULT_HWM, check_endpoint
 from tui.cli import UsageError
 from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
 from tui.fleet_options import add_fleet_arguments, fleet_requested
+from tui.iq_options import add_iq_arguments, bearing_from_args, run_iq_live
 from tui.options import add_pipeline_arguments, add_screen_arguments, build_monitor
 
 DESCRIPTION = """\
@@ -77,6 +78,7 @@ def register(subparsers: Any) -> None:
     add_pipeline_arguments(p)
     add_fleet_arguments(p)  # --stream, --record-dir, --metrics-listen (tui/fleet_options.py)
     add_curve_arguments(p)  # --curve-secret/-server/-allow (tui/curve_options.py)
+    add_iq_arguments(p)  # --iq/--angle radio source, bearings (tui/iq_options.py)
     p.set_defaults(func=run)
 
 
@@ -129,6 +131,8 @@ def run(args: argparse.Namespace) -> int:
     from stream.live import LiveDriver
     from stream.zmq_source import ZmqSource
 
+    if args.iq:  # IQ samples + positioner angle instead of ENDPOINT (tui/iq_options.py)
+        return run_iq_live(args)
     if not args.endpoint or fleet_requested(args):  # several streams / metrics endpoint
         from tui.fleet_run import run_fleet
         return run_fleet(args)
@@ -147,6 +151,7 @@ def run(args: argparse.Namespace) -> int:
     if args.force and not args.record:
         raise UsageError("--force only applies with --record FILE")
     monitor = build_pipeline(args)
+    monitor.bearing = bearing_from_args(args)
     fail_on = _fail_on(args)
     hook = _hook(args)
     if hook is not None:

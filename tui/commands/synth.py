@@ -15,6 +15,7 @@ from stream.synth import DEFAULT_ENDPOINT, SYNTH_FORMATS, SynthConfig, run_publi
 from tui.cli import UsageError
 from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
 from tui.fleet_synth import add_array_arguments, run_arrays
+from tui.iq_options import add_iq_arguments, run_iq_synth
 
 _D = SynthConfig()
 
@@ -95,6 +96,7 @@ def register(subparsers: Any) -> None:
     m.add_argument("--seed", type=int, default=_D.seed, metavar="N",
                    help=f"random seed for noise and fading (default {_D.seed})")
     add_array_arguments(p)  # several arrays on several ports (tui/fleet_synth.py)
+    add_iq_arguments(p, role="synth")  # --iq: simulated radio (tui/iq_options.py)
     p.set_defaults(func=run)
 
 
@@ -127,6 +129,8 @@ def run(args: argparse.Namespace) -> int:
     if args.list_scenarios:
         print(list_scenarios())
         return 0
+    if args.iq:  # simulated IQ + angle telemetry (tui/iq_options.py)
+        return run_iq_synth(args)
     config = config_from_args(args)
     curve = curve_from_args(args, bind=True)  # the publisher binds: a CURVE server
     check_listen(args.endpoint, curve=curve, insecure=args.insecure_listen,
