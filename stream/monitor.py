@@ -51,6 +51,7 @@ class Monitor:
         self.tick_sinks: list[Callable[[Tick], None]] = []
         self.event_sinks: list[Callable[[Event], None]] = []
         self._expected_hpbw = _model_hpbw(model) if model is not None else None
+        self._columns: tuple[int, object] | None = None  # (sweep count, ColumnDiagnosis)
 
     # -- data in ---------------------------------------------------------------------
     def ingest(self, batch: SampleBatch) -> None:
@@ -131,6 +132,7 @@ class Monitor:
         self.last_tick = None
         self.last_sample_t = None
         self.reference = None
+        self._columns = None
         if self.alarms is not None:
             self.alarms.reset()
 
@@ -158,7 +160,7 @@ class Monitor:
             sweep_peaks_deg=peaks, sweep_peak_t=peak_t, last_sample_t=self.last_sample_t,
             source=source, target_deg=self.target_deg, tolerance_deg=self.tolerance_deg,
             reference=self.reference, expected_hpbw_deg=expected, calibrated=self.calibrated,
-            bearing=self.bearing,
+            bearing=self.bearing, columns=self._column_diagnosis(snap),
         )
         events = list(self._pending)
         self._pending.clear()
@@ -173,6 +175,23 @@ class Monitor:
         for sink in self.tick_sinks:
             sink(tick)
         return tick
+
+    def _column_diagnosis(self, snap: object) -> object:
+        """Column diagnosis of the pattern, recomputed only when a sweep has completed
+        since the last one (it costs a few least-squares fits); None without a model."""
+        count = self.estimator.sweep_count
+        if self.model is None or count < 1:
+            return None
+        if self._columns is None or self._columns[0] != count:
+            # Imported here: scipy.optimize costs start-up time a model-less run never needs.
+            from stream.diagnosis import diagnose
+            from stream.fit import FitError
+            try:
+                result = diagnose(snap.angle_deg, snap.power_db, self.model)
+            except (FitError, ValueError):
+                result = None
+            self._columns = (count, result)
+        return self._columns[1]
 
 
 def _model_hpbw(model: ArrayModel) -> float | None:

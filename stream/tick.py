@@ -118,6 +118,9 @@ class Tick:
     age_s: float | None = None
     provisional: bool = True
     bearing: Any = None  # stream.bearing.BearingConvention when the user set one
+    #: stream.diagnosis.ColumnDiagnosis of the last completed sweep when a model is set
+    #: (recomputed at most once per completed sweep), else None.
+    columns: Any = None
 
     def metrics_record(self) -> dict[str, Any]:
         """The headless ``metrics`` JSON line as a dict."""
