@@ -318,7 +318,11 @@ class AngleJoin:
     def __init__(self, config: JoinConfig, block_s: float, history_s: float = 120.0) -> None:
         self.config = config.validate()
         self.block_s = float(block_s)
-        self.history_s = max(float(history_s), config.auto_wait_s + 10.0)
+        # telemetry kept: the lag estimate's history in auto mode, else what a held block
+        # can still need
+        self.history_s = (max(float(history_s), config.auto_wait_s + 10.0)
+                          if config.lag_s is None
+                          else config.hold_s + config.gap_s + abs(config.lag_s) + 5.0)
         self.counts = JoinCounts()
         self.estimate: LagEstimate | None = None
         self.lag_note: str | None = None
@@ -435,7 +439,12 @@ class AngleJoin:
             self.counts.dropped["settling"] += int(np.sum(~ok & covered))
             self.counts.dropped["angle_gap"] += int(np.sum(~ok & ~covered))
         else:
-            ang, ok = interpolate_angle(bt + lag, self._tel_t, self._tel_a, self.config.gap_s)
+            # only the telemetry around these blocks (the unwrap is linear in its length)
+            tt = self._tel_t
+            i0 = max(int(np.searchsorted(tt, bt[0] + lag - self.config.gap_s)) - 1, 0)
+            i1 = int(np.searchsorted(tt, bt[-1] + lag + self.config.gap_s)) + 1
+            ang, ok = interpolate_angle(bt + lag, tt[i0:i1], self._tel_a[i0:i1],
+                                        self.config.gap_s)
             self.counts.dropped["angle_gap"] += int(np.sum(~ok))
         self.counts.joined += int(np.sum(ok))
         return Joined(bt[ok], ang[ok], bp[ok], bf[ok])
