@@ -48,16 +48,6 @@ AUTH_FAILED: str = "auth_failed"
 #: Keys of a stream table that :func:`curve_from_mapping` reads.
 MAPPING_KEYS: tuple[str, ...] = ("curve_secret", "curve_server", "curve_allow")
 
-_EVENT_NAMES = {zmq.EVENT_HANDSHAKE_FAILED_NO_DETAIL: "handshake failed",
-                zmq.EVENT_HANDSHAKE_FAILED_PROTOCOL: "protocol error (wrong mechanism or "
-                                                     "keys)",
-                zmq.EVENT_HANDSHAKE_FAILED_AUTH: "refused by the allow-list"}
-
-
-def handshake_failure(event: int) -> str | None:
-    """A short description when ``event`` is a failed handshake, else ``None``."""
-    return _EVENT_NAMES.get(int(event))
-
 
 def secret_file_warning(path: str | os.PathLike[str]) -> str | None:
     """A warning line when a secret certificate can be read by group or others.
@@ -151,12 +141,6 @@ class CurveConfig:
             sock.curve_server = True
         else:
             sock.curve_serverkey = self.server_key
-
-    def describe(self) -> str:
-        """One line for status output and session metadata (no secrets)."""
-        if self.is_server:
-            return f"CURVE server, {self.allowed_keys} allowed key(s) in {self.allow_dir}"
-        return f"CURVE client of {self.server_path}"
 
 
 class CurveGuard:
