@@ -22,7 +22,7 @@ from typing import Any
 from tui.bench.figures import Progress, figure, quiet
 
 GROUPS: tuple[str, ...] = ("metrics", "naive", "ingest", "latency", "redraw", "replay",
-                           "curve", "iq")
+                           "curve", "iq", "fleet")
 
 #: The figures each group yields (a failed group reports these with no value).
 GROUP_FIGURES: dict[str, tuple[str, ...]] = {
@@ -37,6 +37,8 @@ GROUP_FIGURES: dict[str, tuple[str, ...]] = {
     "replay": ("replay_sps", "replay_raw_sps", "replay_ratio"),
     "curve": ("ingest_curve_sps", "ingest_curve_ratio"),  # tui/bench/curve.py
     "iq": ("iq_reduce_sps", "iq_channel_sps", "iq_paced_cpu_pct", "iq_join_sps"),  # tui/bench/iq.py
+    "fleet": ("fleet_cpu_pct", "fleet_lost", "fleet_rss_mb", "fleet_scrape_ms",
+              "fleet_scrape_max_ms", "fleet_collect_ms", "fleet_sps"),  # tui/bench/fleet.py
 }
 
 # Targets (issue 7, on the project's 2-core machine).
@@ -229,6 +231,9 @@ def run_bench(quick: bool = False, only: tuple[str, ...] | None = None,
     if "iq" in chosen:
         from tui.bench.iq import run_group as run_iq
         guarded(("iq",), run_iq)
+    if "fleet" in chosen:
+        from tui.bench.fleet import run_group as run_fleet
+        guarded(("fleet",), run_fleet)
     order = [name for g in GROUPS for name in GROUP_FIGURES[g]]
     ordered = {k: figs[k] for k in order if k in figs}
     ordered.update({k: v for k, v in figs.items() if k not in ordered})
