@@ -35,6 +35,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.fft
 import scipy.signal
 import scipy.stats
 
@@ -131,14 +132,27 @@ def channel_psd(x_blocks: np.ndarray, sample_rate_hz: float,
                 nperseg: int) -> tuple[np.ndarray, np.ndarray]:
     """Two-sided Welch PSD of each row of ``x_blocks`` (full-scale^2 / Hz).
 
-    Hann window, 50 % overlap, no detrending (a tone at 0 Hz is signal, not offset),
-    density scaling (ref. 2, 3).  Returns (frequencies in Hz, PSD rows), frequencies as
-    ``scipy.signal.welch`` gives them (not shifted).
+        S(f_i) = mean_m |FFT(w x_m)_i|^2 / (fs sum w^2)
+
+    over segments x_m of ``nperseg`` samples at 50 % overlap, periodic Hann window w, no
+    detrending (a tone at 0 Hz is signal, not offset), density scaling (ref. 2, 3): the
+    same numbers as ``scipy.signal.welch(x, fs, "hann", nperseg, nperseg // 2,
+    detrend=False, return_onesided=False, scaling="density")`` (checked in the tests),
+    computed with one strided view and one batched FFT instead of a transform per
+    segment, which is what keeps 2 MS/s within budget.  Frequencies are in FFT order.
     """
-    f_hz, psd = scipy.signal.welch(x_blocks, fs=sample_rate_hz, window="hann",
-                                   nperseg=nperseg, noverlap=nperseg // 2, detrend=False,
-                                   return_onesided=False, scaling="density", axis=-1)
-    return f_hz, psd
+    n = int(nperseg)
+    w = _hann(n)
+    seg = np.lib.stride_tricks.sliding_window_view(x_blocks, n, axis=-1)[..., ::n // 2, :]
+    spec = scipy.fft.fft(seg * w, axis=-1)
+    psd = (spec.real ** 2 + spec.imag ** 2).mean(axis=-2, dtype=np.float64)
+    psd /= sample_rate_hz * float(np.sum(w.astype(np.float64) ** 2))
+    return scipy.fft.fftfreq(n, 1.0 / sample_rate_hz), psd
+
+
+def _hann(n: int) -> np.ndarray:
+    """The periodic Hann window scipy.signal.welch uses for ``window="hann"``."""
+    return scipy.signal.get_window("hann", n).astype(np.float32)
 
 
 def channel_power(x: np.ndarray, block_len: int, sample_rate_hz: float,
