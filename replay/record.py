@@ -203,7 +203,8 @@ def _curves(asmt: Assessment, data: RecordData) -> dict[str, Any]:
     spec = data.spec
     if spec is not None and spec.mask is not None and m.peak_angle_deg is not None:
         mk = spec.mask
-        out["mask"] = (mk.offset_deg + m.peak_angle_deg, mk.limit_db)
+        off = np.arange(mk.offset_deg[0], mk.offset_deg[-1] + 1e-9, 0.5)
+        out["mask"] = (off + m.peak_angle_deg, mk.limit_at(off))
     if data.reference is not None:
         ra, rp = data.reference.angle_deg, data.reference.power_db
         ro = np.argsort(ra)
@@ -411,7 +412,7 @@ def _header_lines(asmt: Assessment, data: RecordData) -> list[tuple[str, str]]:
     lines = [("Site", m.get("site") or "—"), ("Array", m.get("array") or "—"),
              ("Operator", m.get("operator") or "—"), ("Date", _iso(data.created_t)),
              ("lobewatch", version()),
-             ("Model", "none" if asmt.model is None else ", ".join(
+             ("Nominal model", "none" if asmt.model is None else ", ".join(
                  f"{k}={v}" for k, v in asmt.model.to_dict().items())),
              ("Specification", "options" if data.spec is None or not data.spec.source
               else data.spec.source)]

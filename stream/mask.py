@@ -19,7 +19,9 @@ Mask file format (lobewatch's own, CSV; see docs/commissioning.md)::
 * ``limit_db``: the highest allowed level relative to the peak, dB (0 at the peak,
   negative below it).
 * Between rows the limit is interpolated linearly in dB; outside the first and last
-  offset the mask says nothing (those samples are counted as not covered).
+  offset the mask says nothing (those samples are counted as not covered).  Where the
+  limit is 0 dB or more it does not constrain (no sample lies above the peak), so the
+  worst margin is taken where the limit is below 0 dB.
 
 Check: for every sample, margin = limit(offset) - (power - peak power), dB; the mask
 passes when no margin is negative.  A violated range runs from the first to the last
@@ -132,7 +134,7 @@ def check_mask(angle_deg: np.ndarray, power_db: np.ndarray, mask: Mask,
     a, p = a[order], p[order]
     off = wrap_angle_deg(a - peak_angle_deg)
     limit = mask.limit_at(off)
-    covered = np.isfinite(limit)
+    covered = np.isfinite(limit) & (limit < 0.0)
     margin = np.where(covered, limit - (p - peak_power_db), np.inf)
     if not covered.any():
         return MaskResult(False, float("nan"), float("nan"), float("nan"), [], 0, int(a.size))
