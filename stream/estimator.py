@@ -1,10 +1,11 @@
-"""Rolling beam pattern: per-angle-bin power averaged over time, plus sweep detection.
+"""Rolling beam pattern: per-angle-bin power averaged over time or over sweeps.
 
 The angle axis is cut into bins over the whole circle, so a steered array (a sector such
 as -60..+60 degrees) and a turning mount (all of [-180, 180)) are handled alike.  Each
 batch is folded in with a handful of vectorised numpy calls (``np.bincount`` with
 weights); nothing loops per sample, and the state is a fixed set of per-bin arrays plus a
 bounded sweep history, so its size is O(bins + history) however long the session runs.
+Where sweeps end is :mod:`stream.sweeps`' business.
 
 Power is averaged in linear units (mW ratio, ``10**(dB/10)``): averaging dB values would
 bias the pattern low where the signal fades (Jensen's inequality; common practice).
@@ -22,6 +23,7 @@ import numpy as np
 
 from stream.batch import SampleBatch, wrap_angle_deg
 from stream.pattern import measure
+from stream.sweeps import SweepDetector
 
 #: A completed sweep whose samples fill fewer distinct bins than this is not a sweep
 #: (a fly-back, a wrap, jitter at a turning point); its samples stay with the next sweep.
@@ -32,25 +34,21 @@ MIN_SWEEP_BINS: int = 5
 #: jitter of a few tenths of a degree does not split sweeps when the bins are fine.
 MIN_REVERSAL_DEG: float = 0.5
 
-#: ln(10)/10: ``10**(p/10) == exp(p * _DB_TO_NEPER)``, and exp is the cheaper ufunc.
-_DB_TO_NEPER: float = math.log(10.0) / 10.0
+#: Natural log of the power ratio per dB, ln(10)/10 (so ``10**(p/10) == exp(p * this)``;
+#: exp is the cheaper ufunc).  Not the neper: one dB is ln(10)/20 Np, which counts field
+#: (amplitude) ratios; a power ratio's natural log is twice that.
+_LN_POWER_PER_DB: float = math.log(10.0) / 10.0
 
 _AVERAGING: tuple[str, ...] = ("ema", "sweeps")
 
 #: Up to this many bins per batch the per-bin bookkeeping runs on Python scalars.
 _FEW_BINS: int = 4
 
-#: A sweep whose extent reaches this is a full turn (a turning mount), degrees.
-_FULL_TURN_DEG: float = 360.0 - 1e-9
-
-
-#: First chunk scanned for a sweep end; later chunks double.
-_SCAN_CHUNK: int = 256
-
 #: Fewest and most batches :meth:`RollingPattern.update_many` tries to fold in with one
 #: set of numpy calls.
 _RUN_MIN: int = 8
 _RUN_MAX: int = 256
+
 
 def _is_real(v: object) -> bool:
     return isinstance(v, numbers.Real) and not isinstance(v, bool)
@@ -168,34 +166,36 @@ class RollingPattern:
     * ``ema``: with ``dt = now - last_t`` (the bin's previous update time),
       ``alpha = 1 - exp(-dt / tau_s)`` and ``P <- P + alpha * (x - P)``; the first fill
       takes ``P = x``.  This is the exact discretisation of the first-order low-pass
-      ``tau dP/dt = x(t) - P`` with ``x`` held since the previous update (A. Eckner,
-      "Algorithms for unevenly spaced time series", 2012 working paper -- from memory),
-      so a step in the input is followed as ``1 - exp(-t/tau)`` whatever the batch
-      timing.  Batches received at the same ``now`` (or earlier than the bin's last
-      update) are pooled with that update: its ``x`` becomes the mean of all their
-      samples, so splitting a batch without changing ``now`` changes nothing.
+      ``tau dP/dt = x(t) - P`` with ``x`` held since the previous update [1], so a step
+      in the input is followed as ``1 - exp(-t/tau)`` whatever the batch timing.
+      Batches received at the same ``now`` (or earlier than the bin's last update) are
+      pooled with that update: its ``x`` becomes the mean of all their samples, so
+      splitting a batch without changing ``now`` changes nothing.
     * ``sweeps``: the pooled mean of all samples that fell in the bin during the last
       ``sweeps_k`` complete sweeps and the sweep in progress (sum and count per bin in a
       ring of ``sweeps_k`` rows).
 
-    Sweep detection (per sample, causal, so batch boundaries never change it) runs on the
-    continuous angle ``u = a + 360 k``, where ``k`` counts crossings of the +-180 seam (a
-    step of more than 180 deg between two samples is taken as the short way round), so a
-    sector sweep facing the seam is one sweep, not two.  A sweep ends at
+    Where sweeps end is decided by :class:`stream.sweeps.SweepDetector` (per sample,
+    causal).  The sample that reveals the end starts the next sweep.  A sweep filling
+    fewer than ``MIN_SWEEP_BINS`` bins is not counted; its samples join the next sweep.
+    Each counted sweep is measured on its own binned samples with
+    ``stream.pattern.measure``.
 
-    * a reversal: moving up, a sample more than ``h = max(bin/2, MIN_REVERSAL_DEG)``
-      below the highest angle reached (moving down: symmetric).  This also catches the
-      fly-back of a sawtooth (-60 -> +60, jump to -60);
-    * a cut, for a turning mount: once a sweep's extent reaches 360 deg the source is
-      taken to be turning, and that sweep and every later one end where the angle
-      crosses the cut angle -- +-180, or 0 when the last turn's peak faced backwards
-      (|peak| > 90) -- so the main lobe is not split between two sweeps measured at
-      different times.  A reversal ends this mode.  (The fly-back of a sawtooth wider
-      than 180 deg is shorter the other way round the circle and reads as turning.)
+    Fold paths (all give the same bits; :meth:`_fold_path_allowed` is the one place
+    that chooses, and tests pin each one with the private ``_path``):
 
-    The sample that reveals the end starts the next sweep.  A sweep filling fewer than
-    ``MIN_SWEEP_BINS`` bins is not counted; its samples join the next sweep.  Each
-    counted sweep is measured on its own binned samples with ``stream.pattern.measure``.
+    * ``vector`` (:meth:`_fold_vector`): any batch, a dozen numpy calls over the window
+      of bins it touches, split at the sweep ends in it;
+    * ``scalar`` (:meth:`_fold_scalar`): a batch within ``_FEW_BINS`` bins and no sweep
+      end (the usual batch at high sample rates), Python floats per touched bin;
+    * ``run`` (:meth:`_fold_run`): a run of equal-length quiet scalar-sized batches from
+      :meth:`update_many` (a replay), one set of numpy calls for the whole run.
+
+    :meth:`_fold_reference` is the plain per-sample statement of all three.
+
+    References:
+    [1] A. Eckner, "Algorithms for unevenly spaced time series", 2012 working paper
+        (from memory).
     """
 
     def __init__(self, config: EstimatorConfig | None = None) -> None:
@@ -203,21 +203,24 @@ class RollingPattern:
         cfg = self.config
         self._nb = cfg.n_bins
         w = cfg.bin_width_deg
-        self._inv_w = 1.0 / w
-        self._c0 = 180.0 / w + 0.5
+        self._bins_per_deg = 1.0 / w
+        self._c0_bins = 180.0 / w + 0.5
         # Bin i covers [centre_i - w/2, centre_i + w/2), centre_i = -180 + i*w; index =
         # floor((a + 180)/w + 1/2), where the top value n_bins folds onto bin 0 (the wrap).
-        self._centres = -180.0 + w * np.arange(self._nb, dtype=np.float64)
-        self._h = max(0.5 * w, MIN_REVERSAL_DEG)
-        self._inv_tau = 1.0 / float(cfg.tau_s)
+        self._centres_deg = -180.0 + w * np.arange(self._nb, dtype=np.float64)
+        self._hysteresis_deg = max(0.5 * w, MIN_REVERSAL_DEG)
+        self._inv_tau_per_s = 1.0 / float(cfg.tau_s)
         self._ema = cfg.averaging == "ema"
+        #: None: every fold path where it applies; else tests pin one ("vector",
+        #: "scalar", "run") or the plain per-sample statement ("reference").
+        self._path: str | None = None
         self.reset()
 
     # -- state ------------------------------------------------------------------------
     def reset(self) -> None:
         """Forget everything: bins, sweep in progress, history and counters."""
         nb = self._nb
-        self._last_t = np.full(nb, -np.inf)           # last update time per bin
+        self._last_t = np.full(nb, -np.inf)           # last update time per bin, Unix s
         self._p = np.zeros(nb)                        # ema: averaged linear power
         self._p_prev = np.zeros(nb)                   # ema: value before the last update
         self._alpha = np.zeros(nb)                    # ema: weight of the last update
@@ -225,27 +228,19 @@ class RollingPattern:
         self._u_cnt = np.zeros(nb)                    # ema: sample count of the last update
         self._sw_sum = np.zeros(nb)                   # sweep in progress: sum per bin
         self._sw_cnt = np.zeros(nb, dtype=np.int64)   # sweep in progress: count per bin
-        self._sw_off = np.zeros(nb)                   # sweep in progress: offset sum
-        self._sw_lo = math.inf                        # sweep in progress: range of u
-        self._sw_hi = -math.inf
+        self._sw_off_bins = np.zeros(nb)              # sweep in progress: offset sum
+        self._sw_lo_deg = math.inf                    # sweep in progress: range of u
+        self._sw_hi_deg = -math.inf
         k = self.config.sweeps_k if not self._ema else 0
         self._ring_sum = np.zeros((k, nb))            # sweeps: last K complete sweeps
         self._ring_cnt = np.zeros((k, nb), dtype=np.int64)
         self._ring_pos = 0
         self._tot_sum = np.zeros(nb if k else 0)      # sweeps: sum of the ring rows
         self._tot_cnt = np.zeros(nb if k else 0, dtype=np.int64)
-        self._off_sum = np.zeros(nb)                  # sum of sample offsets from centre
+        self._off_sum_bins = np.zeros(nb)             # sum of sample offsets from centre
         self._off_cnt = np.zeros(nb)                  # (in bins) and their count
-        self._now_max = -math.inf                     # latest receive time seen
-        self._dir = 0                                 # +1 up, -1 down, 0 not yet known
-        self._ext = math.nan                          # furthest angle in the direction
-        self._e_lo = math.inf                         # extent of the sweep (detection)
-        self._e_hi = -math.inf
-        self._k = 0                                   # seam crossings (u = a + 360 k)
-        self._turning = False                         # a full turn seen: a turning mount
-        self._cut = -180.0                            # turning: where turns are cut
-        self._next_cut = math.inf                     # turning: u of the next cut
-        self._last_a = math.nan                       # last wrapped angle seen
+        self._now_max = -math.inf                     # latest receive time seen, Unix s
+        self._det = SweepDetector(self._hysteresis_deg)
         self._history: deque[SweepRecord] = deque(maxlen=self.config.history)
         self._sweep_count = 0
         self._samples = 0
@@ -268,7 +263,7 @@ class RollingPattern:
     @property
     def bin_centres_deg(self) -> np.ndarray:
         """Centres of all bins (a copy), ascending from -180."""
-        return self._centres.copy()
+        return self._centres_deg.copy()
 
     def peak_angle_spread_deg(self, n: int = 8) -> float | None:
         """Sample standard deviation of the peak angle over the last ``n`` sweeps that had
@@ -283,114 +278,58 @@ class RollingPattern:
                     break
         return circular_std_deg(peaks)
 
-    # -- data in ----------------------------------------------------------------------
+    # -- data in: the one place a fold path is chosen ---------------------------------
+    def _fold_path_allowed(self, path: str) -> bool:
+        """Whether fold path ``path`` may be taken where it applies (all of them unless a
+        test pinned one; the vector path is the fallback of every other)."""
+        return self._path is None or self._path == path
+
     def update(self, batch: SampleBatch, now: float) -> None:
-        """Fold in one batch whose samples were all received at ``now`` (seconds)."""
-        # float64 throughout: the bin window below relies on scalar and array index
-        # arithmetic agreeing exactly (a no-op for the usual float64 arrays).
-        a = np.asarray(batch.angle_deg, dtype=np.float64)
-        p = np.asarray(batch.power_db, dtype=np.float64)
-        if a.shape[0] == 0:
+        """Fold in one batch whose samples were all received at ``now`` (Unix s)."""
+        if self._path == "reference":
+            self._fold_reference(batch, now)
             return
-        lo = float(a.min())
-        hi = float(a.max())
-        if not (-180.0 <= lo and hi < 180.0 and math.isfinite(float(p.sum()))):
-            a, p = _clean(a, p)
-            if a.shape[0] == 0:
-                return
-            lo = float(a.min())
-            hi = float(a.max())
+        prep = self._prepare(batch)
+        if prep is None:
+            return
+        a, lin, idx, off, i0, span, seam, lo, hi = prep
         now = float(now)
-        nb = self._nb
-        inv_w = self._inv_w
         self._samples += int(a.shape[0])
-        lin = p * _DB_TO_NEPER
-        np.exp(lin, out=lin)
-        # Work on the window of bins [i0, i0 + span) the batch touches, so the cost does
-        # not grow with the number of bins.  Index nb (just below +180) is bin 0.  The
-        # scalar and the array index use the same float operations, hence agree.
-        c0 = self._c0
-        i0 = int(lo * inv_w + c0)
-        i1 = int(hi * inv_w + c0)
-        seam = i1 >= nb
-        if seam:
-            i0 = 0
-        x = a * inv_w
-        x += c0
-        idx = x.astype(np.intp)
-        if i0:
-            idx -= i0
-        span = i1 - i0 + 1
-        # Where in its bin each sample fell (bins of offset, -1/2 .. 1/2): a bin's angle
-        # is its samples' mean angle, not its centre, so a steering grid that does not
-        # line up with the bins (0.5-degree steps in 1-degree bins) gives no bias.
-        x -= idx
-        x -= i0 + 0.5
-        s, c, so = self._bin_sums(idx, lin, x, span, seam)
-        win = slice(i0, i0 + s.shape[0])
-
-        u, u_lo, u_hi = self._unwrap(a, lo, hi)
-        b = self._next_boundary(u, 0, u_lo, u_hi)
-        if b < 0:
-            self._sw_lo = min(self._sw_lo, u_lo)
-            self._sw_hi = max(self._sw_hi, u_hi)
-            if span <= _FEW_BINS:
-                # A batch inside a few bins (the usual case at high sample rates): plain
-                # Python floats per touched bin beat a dozen small-array numpy calls.
-                self._update_few(i0, s.tolist(), c.tolist(), now, so.tolist())
-                return
-            self._off_sum[win] += so
-            self._off_cnt[win] += c
-            self._sw_off[win] += so
-            self._sw_sum[win] += s
-            self._sw_cnt[win] += c
-        else:
-            n = a.shape[0]
-            k = 0
-            while b >= 0:
-                if b > k:
-                    self._add_to_sweep(u[k:b], idx[k:b], lin[k:b], x[k:b], win, seam)
-                self._end_sweep(now)
-                k = b
-                b = self._next_boundary(u, b + 1, math.nan, math.nan) if b + 1 < n else -1
-            self._add_to_sweep(u[k:], idx[k:], lin[k:], x[k:], win, seam)
-
-        tl = np.flatnonzero(c)
-        tb = tl + i0 if i0 else tl
-        lt = self._last_t[tb]
-        if self._ema:
-            self._update_ema(tb, s[tl], c[tl].astype(np.float64), lt, now)
-        if now > self._now_max:
-            self._last_t[tb] = now
-            self._now_max = now
-        else:
-            self._last_t[tb] = np.maximum(lt, now)
+        s, c, so = self._bin_sums(idx, lin, off, span, seam)
+        u, u_lo, u_hi = self._det.unwrap(a, lo, hi)
+        b = self._det.next_boundary(u, 0, u_lo, u_hi)
+        if b < 0 and span <= _FEW_BINS and self._fold_path_allowed("scalar"):
+            self._sw_lo_deg = min(self._sw_lo_deg, u_lo)
+            self._sw_hi_deg = max(self._sw_hi_deg, u_hi)
+            self._fold_scalar(i0, s.tolist(), c.tolist(), now, so.tolist())
+            return
+        self._fold_vector(u, u_lo, u_hi, b, idx, lin, off, i0, seam, s, c, so, now)
 
     def update_many(self, batches: Sequence[SampleBatch], nows: Sequence[float]) -> None:
         """Fold in several batches in order, batch ``i`` received at ``nows[i]``.
 
         The result is bit for bit that of calling :meth:`update` on each in turn (a
-        replay feeds thousands of small batches; their numpy work is done in a few
-        calls per run instead of a dozen per batch).  A run of equal-length batches
-        that each stay inside a few bins, move one way (or stay within the reversal
-        hysteresis of the furthest angle) and cross no seam takes the shared path;
-        every other batch goes through :meth:`update`.
+        replay feeds thousands of small batches; the run path folds a run of them in a
+        few numpy calls).  After a run that could not be taken, the next batches go one
+        by one (doubling each time) so a stream that never runs pays little for trying.
         """
         n = len(batches)
         i = 0
         size = _RUN_MIN  # grows while runs succeed
-        skip = 0  # after a failed try, the next batches go one by one (doubling each time)
+        skip = 0
         wait = 0
+        use_run = self._fold_path_allowed("run") and self._path != "reference"
+        pinned = self._path == "run"
         while i < n:
             j = i
             tried = False
             if wait > 0:
                 wait -= 1
-            elif n - i > 1:
-                j = self._update_run(batches, nows, i, size)
+            elif use_run and n - i > 1:
+                j = self._fold_run(batches, nows, i, size)
                 tried = True
             if j == i:
-                if tried:  # a failed try: back off
+                if tried and not pinned:  # a failed try: back off
                     skip = min(2 * skip + 1, _RUN_MAX)
                     wait = skip
                     size = _RUN_MIN
@@ -402,12 +341,183 @@ class RollingPattern:
                     size = min(2 * size, _RUN_MAX)
             i = j
 
-    def _update_run(self, batches: Sequence[SampleBatch], nows: Sequence[float],
-                    start: int, size: int) -> int:
-        """Fold in the longest simple run of batches from ``start`` (see
-        :meth:`update_many`); returns the index after it (``start``: none taken)."""
-        d = self._dir
-        if d == 0 or self._turning or self._k != 0:
+    def _prepare(self, batch: SampleBatch) -> tuple | None:
+        """Clean angles, linear power, window-relative bin index and offset in the bin
+        (bins, -1/2 .. 1/2) of every sample, and the window: ``(a, lin, idx, off, i0,
+        span, seam, lo, hi)``, or None for a batch with no usable sample."""
+        # float64 throughout: the bin window relies on scalar and array index arithmetic
+        # agreeing exactly (a no-op for the usual float64 arrays).
+        a = np.asarray(batch.angle_deg, dtype=np.float64)
+        p = np.asarray(batch.power_db, dtype=np.float64)
+        if a.shape[0] == 0:
+            return None
+        lo = float(a.min())
+        hi = float(a.max())
+        if not (-180.0 <= lo and hi < 180.0 and math.isfinite(float(p.sum()))):
+            a, p = _clean(a, p)
+            if a.shape[0] == 0:
+                return None
+            lo = float(a.min())
+            hi = float(a.max())
+        lin = p * _LN_POWER_PER_DB
+        np.exp(lin, out=lin)
+        # The window of bins [i0, i0 + span) the batch touches, so the cost does not grow
+        # with the number of bins.  Index nb (just below +180) is bin 0.  The scalar and
+        # the array index use the same float operations, hence agree.
+        c0 = self._c0_bins
+        i0, i1 = _window(lo, hi, self._bins_per_deg, c0)
+        seam = i1 >= self._nb
+        if seam:
+            i0 = 0
+        x = a * self._bins_per_deg
+        x += c0
+        idx = x.astype(np.intp)
+        if i0:
+            idx -= i0
+        # Where in its bin each sample fell: a bin's angle is its samples' mean angle,
+        # not its centre, so a steering grid that does not line up with the bins
+        # (0.5-degree steps in 1-degree bins) gives no bias.
+        x -= idx
+        x -= i0 + 0.5
+        return a, lin, idx, x, i0, i1 - i0 + 1, seam, lo, hi
+
+    # -- fold path: vector ------------------------------------------------------------
+    def _fold_vector(self, u: np.ndarray, u_lo: float, u_hi: float, b: int, idx: np.ndarray,
+                     lin: np.ndarray, off: np.ndarray, i0: int, seam: bool, s: np.ndarray,
+                     c: np.ndarray, so: np.ndarray, now: float) -> None:
+        """Any batch: the sweep in progress gets each stretch between sweep ends (the
+        first end at ``b``, -1 for none), the averages get the whole batch's bin sums."""
+        win = slice(i0, i0 + s.shape[0])
+        if b < 0:
+            self._sw_lo_deg = min(self._sw_lo_deg, u_lo)
+            self._sw_hi_deg = max(self._sw_hi_deg, u_hi)
+            self._add_sums(win, s, c, so)
+        else:
+            n = u.shape[0]
+            k = 0
+            while b >= 0:
+                if b > k:
+                    self._add_stretch(u[k:b], idx[k:b], lin[k:b], off[k:b], win, seam)
+                self._end_sweep(now)
+                k = b
+                b = self._det.next_boundary(u, b + 1, math.nan, math.nan) if b + 1 < n else -1
+            self._add_stretch(u[k:], idx[k:], lin[k:], off[k:], win, seam)
+        tl = np.flatnonzero(c)
+        tb = tl + i0 if i0 else tl
+        lt = self._last_t[tb]
+        if self._ema:
+            self._average_vector(tb, s[tl], c[tl].astype(np.float64), lt, now)
+        if now > self._now_max:
+            self._last_t[tb] = now
+            self._now_max = now
+        else:
+            self._last_t[tb] = np.maximum(lt, now)
+
+    def _average_vector(self, tb: np.ndarray, ss: np.ndarray, cs: np.ndarray, lt: np.ndarray,
+                        now: float) -> None:
+        """Apply the recurrence of the class docstring to the touched bins ``tb``."""
+        if now <= self._now_max and (merge := lt >= now).any():
+            pp = np.where(merge, self._p_prev[tb], self._p[tb])
+            al = np.where(merge, self._alpha[tb],
+                          -np.expm1((lt - now) * self._inv_tau_per_s))
+            ss = ss + np.where(merge, self._u_sum[tb], 0.0)
+            cs = cs + np.where(merge, self._u_cnt[tb], 0.0)
+        else:
+            pp = self._p[tb]
+            # lt = -inf (never filled) gives alpha = 1, hence P = x.
+            al = -np.expm1((lt - now) * self._inv_tau_per_s)
+        self._p[tb] = pp + al * (ss / cs - pp)
+        self._p_prev[tb] = pp
+        self._alpha[tb] = al
+        self._u_sum[tb] = ss
+        self._u_cnt[tb] = cs
+
+    def _add_sums(self, win: slice, s: np.ndarray, c: np.ndarray, so: np.ndarray) -> None:
+        """Add a window's bin sums to the sweep in progress and the bins' mean angles."""
+        self._sw_sum[win] += s
+        self._sw_cnt[win] += c
+        self._off_sum_bins[win] += so
+        self._off_cnt[win] += c
+        self._sw_off_bins[win] += so
+
+    def _add_stretch(self, u: np.ndarray, idx: np.ndarray, lin: np.ndarray, off: np.ndarray,
+                     win: slice, seam: bool) -> None:
+        """Add samples (continuous angles, window-relative bin indices, offsets in their
+        bins) to the sweep in progress and to the bins' mean angles."""
+        self._sw_lo_deg = min(self._sw_lo_deg, float(u.min()))
+        self._sw_hi_deg = max(self._sw_hi_deg, float(u.max()))
+        span = win.stop - win.start + (1 if seam else 0)
+        self._add_sums(win, *self._bin_sums(idx, lin, off, span, seam))
+
+    def _bin_sums(self, idx: np.ndarray, lin: np.ndarray, off: np.ndarray, span: int,
+                  seam: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per-bin sums of linear power, counts and offsets over a window of ``span``
+        bins; across the seam, index n_bins (just below +180) is folded onto bin 0."""
+        s = np.bincount(idx, weights=lin, minlength=span)
+        c = np.bincount(idx, minlength=span)
+        so = np.bincount(idx, weights=off, minlength=span)
+        if seam:
+            nb = self._nb
+            s[0] += s[nb]
+            c[0] += c[nb]
+            so[0] += so[nb]
+            s, c, so = s[:nb], c[:nb], so[:nb]
+        return s, c, so
+
+    # -- fold path: scalar ------------------------------------------------------------
+    def _fold_scalar(self, i0: int, sums: list[float], counts: list[int], now: float,
+                     offs: list[float] | None = None) -> None:
+        """A batch within a few bins and no sweep end: the vector path's arithmetic on
+        Python floats per touched bin (with ``offs``, the bins' offset sums too; the run
+        path adds those itself).  A bin no sample reached would only add zero."""
+        sw_sum, sw_cnt, last_t = self._sw_sum, self._sw_cnt, self._last_t
+        ema = self._ema
+        later = now > self._now_max
+        if later:
+            self._now_max = now
+        for j, cj in enumerate(counts):
+            if not cj:
+                continue
+            b = i0 + j
+            if offs is not None:
+                oj = offs[j]
+                self._off_sum_bins[b] += oj
+                self._off_cnt[b] += cj
+                self._sw_off_bins[b] += oj
+            sj = sums[j]
+            sw_sum[b] += sj
+            sw_cnt[b] += cj
+            lt = float(last_t[b])
+            if ema:
+                self._average_scalar(b, sj, cj, lt, now, later)
+            if now > lt:
+                last_t[b] = now
+
+    def _average_scalar(self, b: int, sj: float, cj: float, lt: float, now: float,
+                        later: bool) -> None:
+        """The recurrence of the class docstring for one bin, on Python floats."""
+        if later or lt < now:
+            pp = float(self._p[b])
+            al = -math.expm1((lt - now) * self._inv_tau_per_s)
+        else:  # pooled with the update at the same receive time
+            pp = float(self._p_prev[b])
+            al = float(self._alpha[b])
+            sj += float(self._u_sum[b])
+            cj += float(self._u_cnt[b])
+        self._p[b] = pp + al * (sj / cj - pp)
+        self._p_prev[b] = pp
+        self._alpha[b] = al
+        self._u_sum[b] = sj
+        self._u_cnt[b] = cj
+
+    # -- fold path: run ---------------------------------------------------------------
+    def _fold_run(self, batches: Sequence[SampleBatch], nows: Sequence[float],
+                  start: int, size: int) -> int:
+        """Fold in the longest run (at most ``size``) of equal-length batches from
+        ``start`` that the scalar path would take one by one and that cross no seam;
+        returns the index after it (``start``: none taken)."""
+        det = self._det
+        if det.direction == 0 or det.turning or det.seam_turns != 0:
             return start
         m = len(batches[start])
         stop = min(len(batches), start + size)
@@ -430,43 +540,33 @@ class RollingPattern:
         his = A.max(axis=1).tolist()
         firsts = A[:, 0].tolist()
         lasts = A[:, -1].tolist()
+        d = det.direction
         back = (np.less if d > 0 else np.greater)(A[:, 1:], A[:, :-1]).any(axis=1).tolist()
-        inv_w, c0, nb, h = self._inv_w, self._c0, self._nb, self._h
-        ext, e_lo, e_hi, last = self._ext, self._e_lo, self._e_hi, self._last_a
+        bpd, c0, nb = self._bins_per_deg, self._c0_bins, self._nb
         i0s: list[int] = []
         spans: list[int] = []
-        # The per-batch decisions of update(), _unwrap() and _next_boundary(), in order;
-        # the run ends before the first batch that would take another path.
+        # update()'s decisions per batch, in order (the detector's own checks); the run
+        # ends before the first batch that would take another path.
         for k in range(n_run):
-            lo, hi, a0 = los[k], his[k], firsts[k]
+            lo, hi = los[k], his[k]
             if not (-180.0 <= lo and hi < 180.0):
                 break
-            i0 = int(lo * inv_w + c0)
-            i1 = int(hi * inv_w + c0)
+            i0, i1 = _window(lo, hi, bpd, c0)
             if i1 >= nb or i1 - i0 + 1 > _FEW_BINS:
                 break
-            if not (hi - lo <= 180.0 and not abs(a0 - last) > 180.0):
+            if not det.may_skip_unwrap(lo, hi, firsts[k]):
                 break
-            if not max(e_hi, hi) - min(e_lo, lo) < _FULL_TURN_DEG:
+            if not det.take_quiet(lo, hi, firsts[k], back[k]):
                 break
-            if d > 0:
-                if not (lo >= max(ext, hi) - h or (a0 >= ext - h and not back[k])):
-                    break
-                ext = max(ext, hi)
-            else:
-                if not (hi <= min(ext, lo) + h or (a0 <= ext + h and not back[k])):
-                    break
-                ext = min(ext, lo)
-            e_lo, e_hi = min(e_lo, lo), max(e_hi, hi)
-            last = lasts[k]
+            det.last_angle_deg = lasts[k]
             i0s.append(i0)
             spans.append(i1 - i0 + 1)
         e = len(i0s)
         if e == 0:
             return start
-        lin = P[:e] * _DB_TO_NEPER
+        lin = P[:e] * _LN_POWER_PER_DB
         np.exp(lin, out=lin)
-        x = A[:e] * inv_w
+        x = A[:e] * bpd
         x += c0
         idx = x.astype(np.intp)
         # Window-relative bin per batch and each sample's offset in its bin, as update()
@@ -487,247 +587,79 @@ class RollingPattern:
         used = np.flatnonzero(c_all)
         gbin = used % _FEW_BINS + np.asarray(i0s, dtype=np.intp)[used // _FEW_BINS]
         so_used = so_all[used]
-        np.add.at(self._off_sum, gbin, so_used)
+        np.add.at(self._off_sum_bins, gbin, so_used)
         np.add.at(self._off_cnt, gbin, c_all[used].astype(np.float64))
-        np.add.at(self._sw_off, gbin, so_used)
+        np.add.at(self._sw_off_bins, gbin, so_used)
         sums = s_all.tolist()
         counts = c_all.tolist()
-        few = self._update_few
         for k in range(e):
             self._samples += m
-            self._sw_lo = min(self._sw_lo, los[k])
-            self._sw_hi = max(self._sw_hi, his[k])
+            self._sw_lo_deg = min(self._sw_lo_deg, los[k])
+            self._sw_hi_deg = max(self._sw_hi_deg, his[k])
             o = k * _FEW_BINS
-            few(i0s[k], sums[o:o + spans[k]], counts[o:o + spans[k]], float(nows[start + k]))
-        self._ext, self._e_lo, self._e_hi, self._last_a = ext, e_lo, e_hi, last
+            self._fold_scalar(i0s[k], sums[o:o + spans[k]], counts[o:o + spans[k]],
+                              float(nows[start + k]))
         return start + e
 
-    def _update_few(self, i0: int, sums: list[float], counts: list[int], now: float,
-                    offs: list[float] | None = None) -> None:
-        """Scalar twin of the vector path for a batch within a few bins, no sweep end
-        (with ``offs``, the bins' offset sums too; a bin no sample reached would only add
-        zero)."""
-        sw_sum, sw_cnt, last_t = self._sw_sum, self._sw_cnt, self._last_t
-        ema = self._ema
+    # -- the reference: every fold path, stated plainly --------------------------------
+    def _fold_reference(self, batch: SampleBatch, now: float) -> None:
+        """What every fold path computes, one sample at a time in plain Python: the same
+        float operations in the same order (bin sums in sample order, the seam bin's
+        sum added to bin 0's after), no shortcuts.  Slow; for tests only."""
+        prep = self._prepare(batch)
+        if prep is None:
+            return
+        a, lin, idx, off, i0, _, seam, _, _ = prep
+        now = float(now)
+        det = self._det
+        self._samples += int(a.shape[0])
+        a_l, lin_l, idx_l, off_l = a.tolist(), lin.tolist(), idx.tolist(), off.tolist()
+
+        def sums(lo: int, hi: int) -> dict[int, list]:
+            """Touched bin -> [sum, count, offset sum], added in sample order; the
+            seam index n_bins is folded onto bin 0 after."""
+            acc: dict[int, list] = {}
+            for i in range(lo, hi):
+                e = acc.setdefault(idx_l[i], [0.0, 0, 0.0])
+                e[0] += lin_l[i]
+                e[1] += 1
+                e[2] += off_l[i]
+            top = acc.pop(self._nb, None) if seam else None
+            if top is not None:
+                e = acc.setdefault(0, [0.0, 0, 0.0])
+                e[0] += top[0]
+                e[1] += top[1]
+                e[2] += top[2]
+            return acc
+
+        def add(lo: int, hi: int) -> None:
+            for j, (sj, cj, oj) in sums(lo, hi).items():
+                self._sw_sum[i0 + j] += sj
+                self._sw_cnt[i0 + j] += cj
+                self._off_sum_bins[i0 + j] += oj
+                self._off_cnt[i0 + j] += cj
+                self._sw_off_bins[i0 + j] += oj
+
+        k = 0
+        for i, ai in enumerate(a_l):
+            u = det.unwrap_one(ai)
+            if det.step(u):
+                add(k, i)
+                self._end_sweep(now)
+                k = i
+            self._sw_lo_deg = min(self._sw_lo_deg, u)
+            self._sw_hi_deg = max(self._sw_hi_deg, u)
+        add(k, len(a_l))
         later = now > self._now_max
-        if later:
-            self._now_max = now
-        for j, cj in enumerate(counts):
-            if not cj:
-                continue
+        for j, (sj, cj, _) in sorted(sums(0, len(a_l)).items()):
             b = i0 + j
-            if offs is not None:
-                oj = offs[j]
-                self._off_sum[b] += oj
-                self._off_cnt[b] += cj
-                self._sw_off[b] += oj
-            sj = sums[j]
-            sw_sum[b] += sj
-            sw_cnt[b] += cj
-            lt = float(last_t[b])
-            if ema:
-                if later or lt < now:
-                    pp = float(self._p[b])
-                    al = -math.expm1((lt - now) * self._inv_tau)
-                else:  # pooled with the update at the same receive time
-                    pp = float(self._p_prev[b])
-                    al = float(self._alpha[b])
-                    sj += float(self._u_sum[b])
-                    cj += float(self._u_cnt[b])
-                self._p[b] = pp + al * (sj / cj - pp)
-                self._p_prev[b] = pp
-                self._alpha[b] = al
-                self._u_sum[b] = sj
-                self._u_cnt[b] = cj
-            if now > lt:
-                last_t[b] = now
+            lt = float(self._last_t[b])
+            if self._ema:
+                self._average_scalar(b, sj, cj, lt, now, later)
+            self._last_t[b] = max(lt, now)
+        self._now_max = max(self._now_max, now)
 
-    def _update_ema(self, tb: np.ndarray, ss: np.ndarray, cs: np.ndarray, lt: np.ndarray,
-                    now: float) -> None:
-        """Apply the recurrence of the class docstring to the touched bins ``tb``."""
-        if now <= self._now_max and (merge := lt >= now).any():
-            pp = np.where(merge, self._p_prev[tb], self._p[tb])
-            al = np.where(merge, self._alpha[tb], -np.expm1((lt - now) * self._inv_tau))
-            ss = ss + np.where(merge, self._u_sum[tb], 0.0)
-            cs = cs + np.where(merge, self._u_cnt[tb], 0.0)
-        else:
-            pp = self._p[tb]
-            # lt = -inf (never filled) gives alpha = 1, hence P = x.
-            al = -np.expm1((lt - now) * self._inv_tau)
-        self._p[tb] = pp + al * (ss / cs - pp)
-        self._p_prev[tb] = pp
-        self._alpha[tb] = al
-        self._u_sum[tb] = ss
-        self._u_cnt[tb] = cs
-
-    def _add_to_sweep(self, u: np.ndarray, idx: np.ndarray, lin: np.ndarray, off: np.ndarray,
-                      win: slice, seam: bool) -> None:
-        """Add samples (continuous angles, window-relative bin indices, offsets in their
-        bins) to the sweep in progress and to the bins' mean angles."""
-        self._sw_lo = min(self._sw_lo, float(u.min()))
-        self._sw_hi = max(self._sw_hi, float(u.max()))
-        span = win.stop - win.start + (1 if seam else 0)
-        s, c, so = self._bin_sums(idx, lin, off, span, seam)
-        self._sw_sum[win] += s
-        self._sw_cnt[win] += c
-        self._off_sum[win] += so
-        self._off_cnt[win] += c
-        self._sw_off[win] += so
-
-    def _bin_sums(self, idx: np.ndarray, lin: np.ndarray, off: np.ndarray, span: int,
-                  seam: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Per-bin sums of linear power, counts and offsets over a window of ``span``
-        bins; across the seam, index n_bins (just below +180) is folded onto bin 0."""
-        s = np.bincount(idx, weights=lin, minlength=span)
-        c = np.bincount(idx, minlength=span)
-        so = np.bincount(idx, weights=off, minlength=span)
-        if seam:
-            nb = self._nb
-            s[0] += s[nb]
-            c[0] += c[nb]
-            so[0] += so[nb]
-            s, c, so = s[:nb], c[:nb], so[:nb]
-        return s, c, so
-
-    def _unwrap(self, a: np.ndarray, lo: float, hi: float) -> tuple[np.ndarray, float, float]:
-        """The batch on the continuous angle axis ``u = a + 360 k``, where ``k`` counts the
-        seam crossings so far (a step of more than 180 deg between consecutive samples is
-        a crossing of +-180, not a real move).  Returns ``u`` and its range."""
-        last = self._last_a
-        self._last_a = float(a[-1])
-        if hi - lo <= 180.0 and not abs(float(a[0]) - last) > 180.0:
-            k = self._k
-            if k == 0:
-                return a, lo, hi
-            off = 360.0 * k
-            return a + off, lo + off, hi + off
-        d = np.empty(a.shape[0])
-        d[0] = float(a[0]) - last if last == last else 0.0
-        np.subtract(a[1:], a[:-1], out=d[1:])
-        cross = (d < -180.0).astype(np.int64)
-        cross -= d > 180.0
-        kk = np.cumsum(cross)
-        kk += self._k
-        self._k = int(kk[-1])
-        u = a + 360.0 * kk
-        return u, float(u.min()), float(u.max())
-
-    def _next_boundary(self, u: np.ndarray, k: int, lo: float, hi: float) -> int:
-        """Index of the first sample at or after ``k`` in ``u`` (continuous angles) that
-        starts a new sweep, or -1; consumes the samples up to it into the direction
-        state.  ``lo``/``hi`` are the range of ``u[k:]`` when known (else NaN).
-
-        One vectorised scan per event, shortcuts for the usual event-free batch."""
-        h = self._h
-        n = u.shape[0]
-        d = self._dir
-        ext = self._ext
-        e_lo, e_hi = self._e_lo, self._e_hi
-        if lo != lo:
-            lo = float(u[k:].min())
-            hi = float(u[k:].max())
-        if d != 0:
-            if self._turning:
-                quiet = hi < self._next_cut if d > 0 else lo > self._next_cut
-            else:
-                quiet = max(e_hi, hi) - min(e_lo, lo) < _FULL_TURN_DEG
-            if quiet:
-                seg = u[k:]
-                # Whole rest within h of the furthest point (common at high rates: a
-                # batch spans a fraction of a degree), or monotone in the direction of
-                # travel from within h of it: no retreat anywhere.
-                if d > 0 and (lo >= max(ext, hi) - h or (
-                        seg[0] >= ext - h and not np.less(seg[1:], seg[:-1]).any())):
-                    self._ext = max(ext, hi)
-                    self._e_lo, self._e_hi = min(e_lo, lo), max(e_hi, hi)
-                    return -1
-                if d < 0 and (hi <= min(ext, lo) + h or (
-                        seg[0] <= ext + h and not np.greater(seg[1:], seg[:-1]).any())):
-                    self._ext = min(ext, lo)
-                    self._e_lo, self._e_hi = min(e_lo, lo), max(e_hi, hi)
-                    return -1
-        # Scan in chunks that start small and double: a batch full of reversals (junk, or
-        # a jittering encoder) then costs O(chunk) per reversal instead of O(rest of batch),
-        # while a long event-free stretch still takes few vector calls.
-        chunk = _SCAN_CHUNK
-        while k < n:
-            seg = u[k:k + chunk]
-            m = seg.shape[0]
-            chunk *= 2
-            if d == 0:
-                if math.isnan(ext):
-                    ext = e_lo = e_hi = float(seg[0])
-                    k += 1
-                    continue
-                dev = seg - ext
-                far = np.abs(dev) > h
-                j = int(far.argmax())
-                if not far[j]:
-                    e_lo = min(e_lo, float(seg.min()))
-                    e_hi = max(e_hi, float(seg.max()))
-                    k += m
-                    continue
-                d = 1 if dev[j] > 0 else -1
-                ext = float(seg[j])
-                e_lo = min(e_lo, float(seg[:j + 1].min()))
-                e_hi = max(e_hi, float(seg[:j + 1].max()))
-                k += j + 1
-                continue
-            # run = furthest point so far (with the carried one); back = the retreat.
-            if d > 0:
-                run = np.maximum.accumulate(seg)
-                if ext > run[0]:
-                    np.maximum(run, ext, out=run)
-                back = run - seg
-            else:
-                run = np.minimum.accumulate(seg)
-                if ext < run[0]:
-                    np.minimum(run, ext, out=run)
-                back = seg - run
-            hit = back > h
-            if self._turning:
-                hit |= (seg >= self._next_cut) if d > 0 else (seg <= self._next_cut)
-            else:
-                # Extent of the sweep at each sample: furthest point minus the far end.
-                if d > 0:
-                    far_end = np.minimum.accumulate(seg)
-                    np.minimum(far_end, e_lo, out=far_end)
-                    extent = run - far_end
-                else:
-                    far_end = np.maximum.accumulate(seg)
-                    np.maximum(far_end, e_hi, out=far_end)
-                    extent = far_end - run
-                hit |= extent >= _FULL_TURN_DEG
-            j = int(hit.argmax())
-            if not hit[j]:
-                ext = float(run[-1])
-                e_lo = min(e_lo, float(seg.min()))
-                e_hi = max(e_hi, float(seg.max()))
-                k += m
-                continue
-            x = float(seg[j])
-            if back[j] > h:  # reversal: a new sweep the other way
-                self._dir, self._ext, self._e_lo, self._e_hi = -d, x, x, x
-                self._turning = False
-                return k + j
-            if self._turning:  # the cut angle: a new turn the same way
-                self._ext, self._e_lo, self._e_hi = x, x, x
-                self._next_cut += 360.0 * d
-                return k + j
-            # The sweep has gone all the way round: a turning mount.  From here on, turns
-            # are cut at the cut angle (away from the beam), starting with the next one.
-            self._turning = True
-            self._next_cut = _beyond(x, self._cut, d)
-            ext = float(run[j])
-            e_lo = min(e_lo, float(seg[:j + 1].min()))
-            e_hi = max(e_hi, float(seg[:j + 1].max()))
-            k += j + 1
-        self._dir = d
-        self._ext = ext
-        self._e_lo = e_lo
-        self._e_hi = e_hi
-        return -1
-
+    # -- sweeps -----------------------------------------------------------------------
     def _end_sweep(self, now: float) -> None:
         """Close the sweep in progress: measure and record it, or, if it filled too few
         bins, keep its samples for the next sweep."""
@@ -737,21 +669,16 @@ class RollingPattern:
             return
         sums = self._sw_sum[filled]
         # Each sweep is measured on its own samples, their mean angle per bin included.
-        angle = self._centres[filled] + (self._sw_off[filled] / cnt[filled]
-                                         * self.config.bin_width_deg)
+        angle = self._centres_deg[filled] + (self._sw_off_bins[filled] / cnt[filled]
+                                             * self.config.bin_width_deg)
         power_db = 10.0 * np.log10(sums / cnt[filled])
         metrics = measure(angle, power_db)
         self._history.append(SweepRecord(
             t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
-            peak_power_db=metrics.peak_power_db, angle_min_deg=_wrap1(self._sw_lo),
-            angle_max_deg=_wrap1(self._sw_hi)))
+            peak_power_db=metrics.peak_power_db, angle_min_deg=_wrap1(self._sw_lo_deg),
+            angle_max_deg=_wrap1(self._sw_hi_deg)))
         self._sweep_count += 1
-        peak = metrics.peak_angle_deg
-        if self._turning and peak is not None:
-            cut = 0.0 if abs(peak) > 90.0 else -180.0  # the half circle behind the beam
-            if cut != self._cut:
-                self._cut = cut
-                self._next_cut = _beyond(self._ext, cut, self._dir)
+        self._det.sweep_measured(metrics.peak_angle_deg)
         if not self._ema:
             pos = self._ring_pos
             self._ring_sum[pos] = self._sw_sum
@@ -762,17 +689,17 @@ class RollingPattern:
             self._ring_cnt.sum(axis=0, out=self._tot_cnt)
         self._sw_sum = np.zeros(self._nb)
         self._sw_cnt = np.zeros(self._nb, dtype=np.int64)
-        self._sw_off = np.zeros(self._nb)
-        self._sw_lo = math.inf
-        self._sw_hi = -math.inf
+        self._sw_off_bins = np.zeros(self._nb)
+        self._sw_lo_deg = math.inf
+        self._sw_hi_deg = -math.inf
 
     # -- readout ----------------------------------------------------------------------
     def _bin_angle(self, sel: np.ndarray) -> np.ndarray:
         """Mean angle of the samples that fell in bins ``sel`` (all samples so far: the
         angle grid of a sweep does not change with time), in degrees."""
         n = self._off_cnt[sel]
-        off = self._off_sum[sel] / np.where(n > 0, n, 1.0)
-        return self._centres[sel] + off * self.config.bin_width_deg
+        off = self._off_sum_bins[sel] / np.where(n > 0, n, 1.0)
+        return self._centres_deg[sel] + off * self.config.bin_width_deg
 
     def snapshot(self, now: float) -> PatternSnapshot:
         """The valid bins at ``now``: filled and refreshed within ``stale_after_s``."""
@@ -816,8 +743,8 @@ def _wrap1(angle_deg: float) -> float:
     return angle_deg if -180.0 <= angle_deg < 180.0 else float(wrap_angle_deg(angle_deg))
 
 
-def _beyond(u: float, cut_deg: float, direction: int) -> float:
-    """The first angle ``cut_deg + 360 m`` strictly beyond ``u`` in ``direction``."""
-    if direction > 0:
-        return cut_deg + 360.0 * (math.floor((u - cut_deg) / 360.0) + 1)
-    return cut_deg + 360.0 * (math.ceil((u - cut_deg) / 360.0) - 1)
+
+def _window(lo_deg: float, hi_deg: float, bins_per_deg: float, c0_bins: float) -> tuple[int, int]:
+    """First and last bin index of angles in [lo, hi] (before the
+    seam fold): ``int(a / w + 180 / w + 1/2)``, the same float operations as the arrays."""
+    return int(lo_deg * bins_per_deg + c0_bins), int(hi_deg * bins_per_deg + c0_bins)

@@ -88,8 +88,63 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
 
     Raises ``ValueError`` only when the two arrays differ in shape; any pattern the
     data cannot characterise (too few samples, flat, beam outside the sweep) gives
-    ``None`` values with reasons.
+    ``None`` values with reasons.  Two passes: :func:`_clean_pass` (3-point parabola
+    peak [2], level crossings by linear interpolation in dB), then, when the quartic
+    residual above half power exceeds ``_NOISE_DB``, :func:`_noisy_pass` (least-squares
+    quartic peak, Savitzky-Golay smoothed walk [3], least-squares side lobe top).
+
+    Returns:
+        BeamMetrics: angles (``peak_angle_deg``, ``hpbw_left_deg``/``_right_deg``,
+        ``sll_angle_deg``) in degrees in the input's frame (see the module docstring);
+        widths (``hpbw_deg``, ``bw10_deg``, ``fnbw_deg``) in degrees; ``peak_power_db``
+        in the input's unit (dBm or dB); ``sll_db`` and ``front_to_back_db`` in dB
+        relative to the peak; ``reasons`` a sentence per ``None`` value.
+
+    References:
+        [1] IEEE Std 145-2013, IEEE Standard for Definitions of Terms for Antennas
+            (half-power beamwidth, side lobe level, front-to-back ratio).
+        [2] Three-point parabolic interpolation of a sampled maximum: common practice
+            (e.g. J. O. Smith, *Spectral Audio Signal Processing*, "Quadratic
+            Interpolation of Spectral Peaks" -- from memory).
+        [3] A. Savitzky, M. J. E. Golay, "Smoothing and differentiation of data by
+            simplified least squares procedures", Anal. Chem. 36(8), 1964.
     """
+    frame = _frame_or_reason(angle_deg, power_db)
+    if isinstance(frame, BeamMetrics):
+        return frame
+    fit = _clean_pass(frame)
+    if fit.right.hp is not None and fit.left.hp is not None:
+        _noisy_pass(frame, fit)
+    return _report(frame, fit)
+
+
+class _Frame:
+    """A pattern re-centred on its highest sample: ``r`` offsets from it (deg, sorted),
+    ``pr`` power (dB), ``ic`` the peak's index, ``x_pk`` its angle."""
+
+    __slots__ = ("r", "pr", "ic", "x_pk", "circular", "report_wrapped")
+
+    def __init__(self, r: np.ndarray, pr: np.ndarray, ic: int, x_pk: float, circular: bool,
+                 report_wrapped: bool) -> None:
+        self.r, self.pr, self.ic, self.x_pk = r, pr, ic, x_pk
+        self.circular, self.report_wrapped = circular, report_wrapped
+
+
+class _Fit:
+    """What a pass found: peak offset ``v_r`` (deg) and level ``pk_db``, the series the
+    lobes were walked on ``ps``, both sides, the side lobe index and its top ``sl``."""
+
+    __slots__ = ("v_r", "pk_db", "ps", "right", "left", "k_sl", "sl_edge", "sl")
+
+    def __init__(self, v_r: float, pk_db: float, ps: np.ndarray, right: _Side, left: _Side,
+                 k_sl: int | None, sl_edge: bool, sl: tuple[float, float] | None) -> None:
+        self.v_r, self.pk_db, self.ps = v_r, pk_db, ps
+        self.right, self.left, self.k_sl, self.sl_edge, self.sl = right, left, k_sl, sl_edge, sl
+
+
+def _frame_or_reason(angle_deg: np.ndarray, power_db: np.ndarray) -> _Frame | BeamMetrics:
+    """Finite samples, merged duplicates, re-centred on the highest; or empty metrics
+    saying why the data cannot be measured."""
     a = np.asarray(angle_deg, dtype=np.float64)
     p = np.asarray(power_db, dtype=np.float64)
     if a.shape != p.shape:
@@ -121,7 +176,7 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
             "lobe may lie outside the scanned span; extend the sweep")
 
     # Re-centre on the peak sample: r is the offset from it, p_r the power.
-    x_pk = x[i]
+    x_pk = float(x[i])
     if circular:
         r = (x - x_pk + 180.0) % 360.0 - 180.0
         order = np.argsort(r, kind="stable")
@@ -132,9 +187,13 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         r = x - x_pk
         pr = p
         ic = i
+    return _Frame(r, pr, ic, x_pk, circular, report_wrapped)
 
+
+def _clean_pass(f: _Frame) -> _Fit:
+    """Peak by the 3-point parabola, lobes walked on the raw samples."""
+    r, pr, ic, circular = f.r, f.pr, f.ic, f.circular
     v_r, pk_db = _vertex(r, pr, ic, circular)
-    ps = pr  # the series the lobes are walked on (smoothed when noisy)
     # Samples out to the outermost half-power crossings (side lobes stay below -3 dB):
     # few means a coarse sweep, whose side lobes may rise only a few dB between
     # sampled nulls.
@@ -146,51 +205,65 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
         rise = min(rise, _RISE_COARSE_DB)
     right, left, k_sl, sl_edge = _lobes(r, pr, ic, pk_db, rise, circular)
     sl = _vertex(r, pr, k_sl, circular) if k_sl is not None and not sl_edge else None
+    return _Fit(v_r, pk_db, pr, right, left, k_sl, sl_edge, sl)
 
-    # Noisy data: a 3-point parabola would follow the noise.  When the main lobe above
-    # half power holds enough samples and a least-squares quartic through them (which
-    # fits a clean lobe, steered and asymmetric ones included, to a few mdB) leaves
-    # residuals above _NOISE_DB, take the peak from that quartic, walk a smoothed
-    # series, and fit the side lobe top by least squares.
-    if right.hp is not None and left.hp is not None:
-        half = 0.5 * (right.hp + left.hp)
+
+def _noisy_pass(f: _Frame, fit: _Fit) -> None:
+    """Noisy data: a 3-point parabola would follow the noise.  When the main lobe above
+    half power holds enough samples and a least-squares quartic through them (which
+    fits a clean lobe, steered and asymmetric ones included, to a few mdB) leaves
+    residuals above _NOISE_DB, take the peak from that quartic, walk a smoothed series,
+    and fit the side lobe top by least squares (updates ``fit``; clean data leave it)."""
+    r, pr, circular = f.r, f.pr, f.circular
+    right, left = fit.right, fit.left
+    half = 0.5 * (right.hp + left.hp)  # type: ignore[operator]
+    ctr = 0.5 * (right.hp - left.hp)  # type: ignore[operator]
+    top = _poly_peak(r, pr, ctr, half, circular, peak_above_rms=_NOISE_DB)
+    if top is None or top[2] <= _NOISE_DB:
+        return
+    ps = pr
+    k_sl, sl_edge = fit.k_sl, fit.sl_edge
+    # Two passes: the second sizes its windows from the first's beamwidth (the raw
+    # walk's width is biased narrow by noise).
+    k_done = 0
+    for npass in range(2):
+        if npass:
+            top = _poly_peak(r, pr, ctr, half, circular) or top
+        sigma, cnt = top[2], top[3]
+        v_r, pk_db = top[0], top[1]
+        k = 2 * (cnt // 12) + 1
+        if k != k_done:
+            ps = _smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
+            k_done = k
+        j = int(np.abs(r - v_r).argmin())
+        rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
+        right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
+        # Offsets from sample j -> offsets from the peak sample.
+        right.shift(float(r[j]))
+        left.shift(-float(r[j]))
+        if right.hp is None or left.hp is None:
+            break
+        new_half = 0.5 * (right.hp + left.hp)
+        converged = abs(new_half - half) <= 0.05 * half
+        half = new_half
         ctr = 0.5 * (right.hp - left.hp)
-        top = _poly_peak(r, pr, ctr, half, circular, peak_above_rms=_NOISE_DB)
-        if top is not None and top[2] > _NOISE_DB:
-            # Two passes: the second sizes its windows from the first's beamwidth
-            # (the raw walk's width is biased narrow by noise).
-            k_done = 0
-            for npass in range(2):
-                if npass:
-                    top = _poly_peak(r, pr, ctr, half, circular) or top
-                sigma, cnt = top[2], top[3]
-                v_r, pk_db = top[0], top[1]
-                k = 2 * (cnt // 12) + 1
-                if k != k_done:
-                    ps = _smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
-                    k_done = k
-                j = int(np.abs(r - v_r).argmin())
-                rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
-                right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
-                # Offsets from sample j -> offsets from the peak sample.
-                right.shift(float(r[j]))
-                left.shift(-float(r[j]))
-                if right.hp is None or left.hp is None:
-                    break
-                new_half = 0.5 * (right.hp + left.hp)
-                converged = abs(new_half - half) <= 0.05 * half
-                half = new_half
-                ctr = 0.5 * (right.hp - left.hp)
-                if converged:
-                    break
-            if right.hp is not None and left.hp is not None and not (
-                    -left.hp <= v_r <= right.hp):
-                v_r = 0.5 * (right.hp - left.hp)  # fit ran off the lobe: use its centre
-            sl = None
-            if k_sl is not None and not sl_edge:
-                f2 = _lsq_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
-                sl = (f2[0], f2[1]) if f2 is not None else _vertex(r, ps, k_sl, circular)
+        if converged:
+            break
+    if right.hp is not None and left.hp is not None and not (-left.hp <= v_r <= right.hp):
+        v_r = 0.5 * (right.hp - left.hp)  # fit ran off the lobe: use its centre
+    sl = None
+    if k_sl is not None and not sl_edge:
+        f2 = _lsq_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
+        sl = (f2[0], f2[1]) if f2 is not None else _vertex(r, ps, k_sl, circular)
+    fit.v_r, fit.pk_db, fit.ps = v_r, pk_db, ps
+    fit.right, fit.left, fit.k_sl, fit.sl_edge, fit.sl = right, left, k_sl, sl_edge, sl
 
+
+def _report(f: _Frame, fit: _Fit) -> BeamMetrics:
+    """The metrics (in the input's frame) and a reason for each one left ``None``."""
+    r, x_pk, report_wrapped = f.r, f.x_pk, f.report_wrapped
+    v_r, pk_db, ps, right, left = fit.v_r, fit.pk_db, fit.ps, fit.right, fit.left
+    k_sl, sl = fit.k_sl, fit.sl
     reasons: dict[str, str] = {}
     vals: dict[str, float | None] = dict.fromkeys(METRIC_KEYS)
     vals["peak_angle_deg"] = _out(x_pk + v_r, report_wrapped)

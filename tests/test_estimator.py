@@ -33,6 +33,7 @@ from stream.estimator import (
     circular_std_deg,
 )
 from stream.pattern import measure
+from stream.sweeps import SweepDetector
 
 # -- helpers -------------------------------------------------------------------------
 
@@ -577,3 +578,161 @@ def test_float32_input_gives_the_float64_result() -> None:
     s1, s2 = est.snapshot(1.0), ref.snapshot(1.0)
     np.testing.assert_array_equal(s1.angle_deg, s2.angle_deg)
     np.testing.assert_allclose(s1.power_db, s2.power_db, atol=1e-12)
+
+
+def _streams() -> dict[str, list[SampleBatch]]:
+    """Invented streams that exercise every path of the estimator: dense sweeps (the
+    shared path), sweeps facing the +-180 seam, a turning mount, junk angles, NaN and
+    out-of-range values, float32 arrays, uneven batch sizes."""
+    rng = np.random.default_rng(11)
+    model = ArrayModel(n_elements=6, spacing_wl=0.5, element_exp=1.0)
+
+    def cut(ang: np.ndarray, sizes: tuple[int, ...] = (1000,)) -> list[SampleBatch]:
+        pw = model.power_db(ang) - 40.0 + rng.normal(0.0, 0.3, ang.size)
+        out, i, k = [], 0, 0
+        while i < ang.size:
+            n = sizes[k % len(sizes)]
+            out.append(SampleBatch.from_arrays(ang[i:i + n], pw[i:i + n]))
+            i += n
+            k += 1
+        return out
+
+    tri = np.concatenate([np.linspace(-60, 60, 60_000), np.linspace(60, -60, 60_000)])
+    seam = (np.concatenate([np.linspace(150, 210, 30_000),
+                            np.linspace(210, 150, 30_000)]) + 180.0) % 360.0 - 180.0
+    turn = (np.arange(200_000) * 0.004 + 180.0) % 360.0 - 180.0
+    junk = rng.uniform(-200.0, 400.0, 20_000)
+    dense = cut(np.tile(tri, 2))
+    bad = cut(tri.copy())
+    bad[7].power_db[3] = np.nan
+    bad[9].angle_deg[5] = 250.0
+    f32 = [SampleBatch(b.t, b.angle_deg.astype(np.float32), b.power_db.astype(np.float32))
+           for b in cut(tri)]
+    return {"dense": dense, "seam": cut(seam), "turning": cut(turn, (700, 1300, 1000)),
+            "junk": cut(junk, (100, 1000)), "bad": bad, "float32": f32}
+
+
+@pytest.mark.parametrize("cfg", [EstimatorConfig(), EstimatorConfig(bin_deg=0.25),
+                                 EstimatorConfig(averaging="sweeps", sweeps_k=2)],
+                         ids=["ema-1deg", "ema-0.25deg", "sweeps"])
+def test_update_many_gives_the_bits_of_update_one_by_one(cfg) -> None:
+    """The replay speed-up (``RollingPattern.update_many``) must not change one bit of
+    the estimator's state: replay stays exactly equal to live (moved here from the
+    benchmark's tests: it is the estimator's property)."""
+    for name, batches in _streams().items():
+        one, many = RollingPattern(cfg), RollingPattern(cfg)
+        nows = [1.0e9 + 0.001 * i for i in range(len(batches))]
+        nows[20:30] = [nows[20]] * 10  # several batches at one receive time
+        i = 0
+        for step in (13, 5, 31, 2, 64, 97, 256) * 100:  # compare after each call
+            if i >= len(batches):
+                break
+            for b, now in zip(batches[i:i + step], nows[i:i + step], strict=True):
+                one.update(b, now)
+            many.update_many(batches[i:i + step], nows[i:i + step])
+            i += step
+            for attr, a in vars(one).items():
+                b = vars(many)[attr]
+                if isinstance(a, np.ndarray):
+                    assert np.array_equal(a, b, equal_nan=True), (name, i, attr)
+                elif isinstance(a, float | int):
+                    assert a == b or (a != a and b != b), (name, i, attr)
+        assert repr(one.sweeps) == repr(many.sweeps), name
+        assert (one.samples, one.sweep_count) == (many.samples, many.sweep_count), name
+        s1, s2 = one.snapshot(nows[-1]), many.snapshot(nows[-1])
+        assert np.array_equal(s1.angle_deg, s2.angle_deg), name
+        assert np.array_equal(s1.power_db, s2.power_db), name
+
+
+# -- fold paths: every one bit for bit equal to the plain reference ---------------------
+
+
+def _same_state(ref: RollingPattern, other: RollingPattern, where: object) -> None:
+    """Every array, number and sweep record of the two estimators and their sweep
+    detectors equal, bit for bit (NaN equal to NaN)."""
+    for attr, a in vars(ref).items():
+        if attr == "_path":
+            continue
+        b = vars(other)[attr]
+        if isinstance(a, np.ndarray):
+            assert a.dtype == b.dtype and np.array_equal(a, b, equal_nan=True), (where, attr)
+        elif isinstance(a, float | int):
+            assert a == b or (a != a and b != b), (where, attr)
+    for slot in SweepDetector.__slots__:
+        a, b = getattr(ref._det, slot), getattr(other._det, slot)
+        assert a == b or (a != a and b != b), (where, slot)
+    assert repr(ref.sweeps) == repr(other.sweeps), where
+
+
+def _path_stream(kind: str, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """Invented angle streams that reach every branch: dense back-and-forth sweeps (the
+    scalar and run paths), a sector facing the seam, a turning mount either way, junk
+    and out-of-range angles, and NaN powers."""
+    rng = np.random.default_rng(seed)
+    step = float(rng.uniform(0.002, 0.05))
+    if kind == "dense":
+        half = np.arange(-40.0, 40.0, step)
+        ang = np.concatenate([half, half[::-1], half])
+    elif kind == "seam":
+        half = np.arange(150.0, 210.0, 20 * step)
+        ang = (np.concatenate([half, half[::-1]]) + 180.0) % 360.0 - 180.0
+    elif kind == "turning":
+        sign = 1.0 if rng.random() < 0.5 else -1.0
+        ang = (rng.uniform(-180, 180) + sign * np.arange(0.0, 800.0, 40 * step)
+               + 180.0) % 360.0 - 180.0
+    else:
+        ang = rng.uniform(-200.0, 400.0, 3000)
+    ang = ang[:6000]
+    pw = ArrayModel(n_elements=6, spacing_wl=0.5).power_db(ang) - 40.0
+    pw = pw + rng.normal(0.0, 0.3, ang.size)
+    if kind == "junk":
+        pw[rng.integers(0, ang.size, 5)] = np.nan
+    return ang, pw
+
+
+@pytest.mark.parametrize("path", ["vector", "scalar", "run"])
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(kind=st.sampled_from(["dense", "seam", "turning", "junk"]),
+       seed=st.integers(0, 2**32 - 1),
+       sizes=st.lists(st.integers(1, 300), min_size=1, max_size=8),
+       group=st.integers(1, 40), repeat_now=st.integers(0, 5),
+       averaging=st.sampled_from(["ema", "sweeps"]),
+       bin_deg=st.sampled_from([0.1, 0.25, 1.0]))
+def test_every_fold_path_gives_the_bits_of_the_reference(
+        path: str, kind: str, seed: int, sizes: list[int], group: int, repeat_now: int,
+        averaging: str, bin_deg: float) -> None:
+    """Random batch cuts (sizes cycled, so runs of equal batches occur), receive times
+    that sometimes repeat or step back, and update_many calls of random length: the
+    pinned fold path ends in exactly the state of the plain per-sample reference
+    (``RollingPattern._fold_reference``), after every call."""
+    ang, pw = _path_stream(kind, seed)
+    cfg = EstimatorConfig(bin_deg=bin_deg, averaging=averaging, sweeps_k=2, tau_s=0.05)
+    ref, fast = RollingPattern(cfg), RollingPattern(cfg)
+    ref._path, fast._path = "reference", path
+    batches: list[SampleBatch] = []
+    nows: list[float] = []
+    i = k = 0
+    while i < ang.size:
+        n = sizes[k % len(sizes)]
+        batches.append(SampleBatch.from_arrays(ang[i:i + n], pw[i:i + n]))
+        back = repeat_now and k % (repeat_now + 3) == 0
+        nows.append(1.0e9 + 0.001 * (k // 2 if back else k))
+        i += n
+        k += 1
+    for j in range(0, len(batches), group):
+        ref.update_many(batches[j:j + group], nows[j:j + group])
+        fast.update_many(batches[j:j + group], nows[j:j + group])
+        _same_state(ref, fast, (path, j))
+    assert ref.samples == int((np.isfinite(pw) & np.isfinite(ang)).sum())
+
+
+def test_the_reference_reads_the_known_sweeps_like_the_fast_paths() -> None:
+    """The reference is not vacuous: on three back-and-forth legs it counts two complete
+    sweeps (the third is in progress) with the beam at broadside."""
+    ang, _ = _legs([-40.0, 40.0, -40.0, 40.0], 0.05)
+    pw = ArrayModel(n_elements=4, spacing_wl=0.5).power_db(ang)
+    ref = RollingPattern()
+    ref._path = "reference"
+    _feed(ref, ang, pw, size=333)
+    assert ref.sweep_count == 2
+    assert ref.sweeps[0].peak_angle_deg == pytest.approx(0.0, abs=0.1)
