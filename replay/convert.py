@@ -13,6 +13,7 @@ interrupted export never leaves half a file, and inputs are only ever read.
 from __future__ import annotations
 
 import csv
+import datetime
 import io
 import json
 import math
@@ -24,7 +25,13 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from replay.session import SUFFIX, SessionReader, SessionWriter, remove_session
+from replay.session import (
+    SUFFIX,
+    SessionReader,
+    SessionWriter,
+    remove_session,
+    user_file_mode,
+)
 from stream.batch import SampleBatch
 from stream.errors import InputFileError, UserError
 
@@ -177,7 +184,22 @@ def import_file(src: str | os.PathLike[str], dst: str | os.PathLike[str], force:
     return ImportSummary(dst, n, bounds.size - 1, float(rx[0]), float(rx[-1]), not has_t)
 
 
+#: Output name meaning standard output.
+STDOUT = "-"
+
+
+def utc_iso(t: float) -> str:
+    """Unix seconds as ISO 8601 UTC with milliseconds, e.g. ``2026-01-01T00:00:00.250Z``."""
+    try:
+        d = datetime.datetime.fromtimestamp(float(t), tz=datetime.UTC)
+    except (OverflowError, OSError, ValueError):
+        return ""
+    return d.isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
 def _check_output(session: str, dst: str, force: bool) -> None:
+    if dst == STDOUT:
+        return
     if os.path.isdir(dst):
         raise UserError(f"{dst}: is a directory; give a file name for -o")
     if os.path.exists(dst):
@@ -191,10 +213,16 @@ def _check_output(session: str, dst: str, force: bool) -> None:
 
 
 def _atomic_write(dst: str, write: Any) -> None:
-    """Run ``write(fh)`` on a temporary file beside ``dst``, then rename it into place."""
+    """Run ``write(fh)`` on a temporary file beside ``dst``, then rename it into place
+    with the user's usual permissions; ``-`` writes to standard output instead."""
+    if dst == STDOUT:
+        write(sys.stdout)
+        sys.stdout.flush()
+        return
     d = os.path.dirname(os.path.abspath(dst))
     try:
         fd, tmp = tempfile.mkstemp(prefix=".lobewatch-", suffix=".part", dir=d)
+        os.fchmod(fd, user_file_mode())  # mkstemp makes 0600
     except OSError as exc:
         raise UserError(f"{dst}: cannot write ({exc.strerror}); check the directory is "
                         "writable") from None
@@ -222,7 +250,7 @@ def export_samples(session: str | os.PathLike[str], dst_csv: str | os.PathLike[s
         with_t = not bool(reader.meta.get("synthetic_t", False))
         power = "power_dbm" if calibrated else "power_db"
         bar = Progress(counts["samples"], f"export {os.path.basename(session)}",
-                       enabled=progress)
+                       enabled=False if dst == STDOUT else progress)
         written = 0
 
         def write(fh: io.TextIOBase) -> None:
@@ -269,15 +297,16 @@ def export_events(session: str | os.PathLike[str], dst_csv: str | os.PathLike[st
     keys: dict[str, None] = {}
     for ev in events:
         for k in ev.data:
-            if k not in ("t", "kind"):
+            if k not in ("t", "time_utc", "kind"):
                 keys.setdefault(k, None)
     cols = list(keys)
 
     def write(fh: io.TextIOBase) -> None:
         w = csv.writer(fh, lineterminator="\n")
-        w.writerow(["t", "kind", *cols])
+        w.writerow(["t", "time_utc", "kind", *cols])
         for ev in events:
-            w.writerow([repr(float(ev.t)), ev.kind, *(_cell(ev.data.get(k)) for k in cols)])
+            w.writerow([repr(float(ev.t)), utc_iso(ev.t), ev.kind,
+                        *(_cell(ev.data.get(k)) for k in cols)])
 
     _atomic_write(dst, write)
     return len(events)

@@ -178,6 +178,42 @@ def _unlink_quietly(path: str) -> None:
         pass
 
 
+def default_sessions_dir() -> Path:
+    """Where recordings go when no file name is given: the platform's user data folder
+    (``$XDG_DATA_HOME/lobewatch/sessions``, by default ``~/.local/share/lobewatch/
+    sessions`` on Linux; platformdirs knows the macOS and Windows places)."""
+    import platformdirs
+    return Path(platformdirs.user_data_dir("lobewatch", appauthor=False)) / "sessions"
+
+
+def new_session_path(directory: str | os.PathLike[str] | None = None, stem: str = "lobewatch",
+                     t: float | None = None) -> Path:
+    """A new, unused ``DIR/STEM-YYYYmmdd-HHMMSS.lwsession`` (local time; ``-2``, ``-3``
+    ... appended when taken).  The folder is created; ``None`` means
+    :func:`default_sessions_dir`."""
+    d = Path(directory) if directory is not None else default_sessions_dir()
+    try:
+        d.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UserError(f"{d}: cannot create the sessions folder ({exc.strerror}); give "
+                        "--record-dir DIR or --record FILE in a writable place") from None
+    base = f"{stem}-{time.strftime('%Y%m%d-%H%M%S', time.localtime(t))}"
+    path = d / f"{base}{SUFFIX}"
+    k = 2
+    while path.exists():
+        path = d / f"{base}-{k}{SUFFIX}"
+        k += 1
+    return path
+
+
+def user_file_mode() -> int:
+    """The mode a new file gets from the user's umask (0o666 & ~umask): sessions and
+    exported files are ordinary documents, not secrets."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
 def remove_session(path: str | os.PathLike[str]) -> None:
     """Delete a session file and its SQLite side files (``-wal``, ``-shm``)."""
     for suffix in ("", "-wal", "-shm", "-journal"):
@@ -247,7 +283,7 @@ class SessionWriter:
         try:
             fd, tmp = tempfile.mkstemp(prefix=".lobewatch-new-", suffix=SUFFIX, dir=d)
             os.close(fd)
-            os.chmod(tmp, 0o644)  # mkstemp makes 0600; a session is an ordinary document
+            os.chmod(tmp, user_file_mode())  # mkstemp makes 0600; a session is a document
         except OSError as exc:
             raise UserError(f"{self.path}: cannot create the session file ({exc.strerror}); "
                             "check the directory exists and is writable") from None
@@ -603,6 +639,18 @@ class SessionReader:
             "events": int(self._one("SELECT count(*) FROM events") or 0),
         }
 
+    def event_counts(self) -> dict[str, int]:
+        """Number of events per kind."""
+        return {str(k): int(c) for k, c in self._query(
+            "SELECT kind, count(*) FROM events GROUP BY kind ORDER BY kind")}
+
+    def encodings(self) -> dict[str, int]:
+        """Samples per sample-column encoding (``{"f8,f8,f8": n}`` for version 1)."""
+        if self._v1:
+            return {PLAIN: int(self._one("SELECT total(n) FROM batches") or 0)}
+        return {str(e): int(n) for e, n in self._query(
+            "SELECT enc, total(n) FROM blocks GROUP BY enc ORDER BY 2 DESC")}
+
     def all_calibrated(self) -> bool:
         """True when every batch carries calibrated power (dBm)."""
         return bool(self._one(f"SELECT coalesce(min(calibrated), 1) FROM {self._btable}"))
@@ -628,6 +676,13 @@ class SessionReader:
         v = self._one(f"SELECT t_first FROM {self._btable} WHERE t_first IS NOT NULL "
                       "ORDER BY id LIMIT 1")
         return None if v is None else float(v)
+
+    def tick_span(self) -> float | None:
+        """Mean spacing of the recorded readouts, seconds (None with fewer than two)."""
+        row = self._query("SELECT count(*), min(t), max(t) FROM ticks")[0]
+        if not row[0] or row[0] < 2:
+            return None
+        return (float(row[2]) - float(row[1])) / (int(row[0]) - 1)
 
     @property
     def has_ticks(self) -> bool:

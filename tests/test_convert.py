@@ -174,8 +174,10 @@ def test_export_events(tmp_path):
     out = tmp_path / "ev.csv"
     assert export_events(s, out) == 3
     rows = list(csv.DictReader(out.open()))
-    assert list(rows[0])[:3] == ["t", "kind", "text"]
+    assert list(rows[0])[:4] == ["t", "time_utc", "kind", "text"]
     assert rows[0]["text"] == "bolt, torqued \"ok\"" and float(rows[0]["t"]) == 10.0
+    # Unix time 10.5 s is 1970-01-01 00:00:10.5 UTC (POSIX definition of the epoch)
+    assert rows[1]["time_utc"] == "1970-01-01T00:00:10.500Z"
     assert float(rows[1]["value"]) == 0.30000000000000004 and rows[1]["watch_deg"] == ""
     assert json.loads(rows[2]["tolerance_deg"]) == [1, 2]
 

@@ -1,9 +1,11 @@
+# PYTHON_ARGCOMPLETE_OK  (global shell completion: argcomplete looks for this marker)
 """The ``lobewatch`` command line: one sub-command per module in ``tui.commands``."""
 
 from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 
 from stream.errors import UserError
@@ -24,12 +26,24 @@ class UsageError(UserError):
     """Bad command-line input: printed as one line, exit status 2."""
 
 
+def version_text() -> str:
+    """``lobewatch X.Y.Z`` from the installed package's metadata (one source of truth:
+    pyproject.toml), or a note when running from an uninstalled tree."""
+    from importlib.metadata import PackageNotFoundError, version
+    try:
+        return f"lobewatch {version('lobewatch')}"
+    except PackageNotFoundError:
+        return "lobewatch (version unknown: not installed; run `pip install -e .`)"
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="lobewatch",
         description="Turn a stream of (angle, power) samples from a swept beam into a live "
                     "beam readout: peak direction, beamwidths, side lobes, model fit, alarms.",
         epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--version", action="version", version=version_text(),
+                        help="print the version and exit")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMANDS:
         try:
@@ -42,8 +56,19 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _complete(parser: argparse.ArgumentParser) -> None:
+    """Shell completion through argcomplete (kept up by its maintainers, reads this very
+    parser so completions never drift from the options, and does bash and zsh from one
+    registration line; see the README).  Does nothing unless the shell asked."""
+    if "_ARGCOMPLETE" not in os.environ:
+        return
+    import argcomplete
+    argcomplete.autocomplete(parser)
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
+    _complete(parser)
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()

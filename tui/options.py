@@ -5,11 +5,25 @@ settings.  ``build_monitor`` turns them into the one pipeline."""
 from __future__ import annotations
 
 import argparse
+import dataclasses
+from collections.abc import Callable
+from typing import TYPE_CHECKING, Any
 
 from stream.array_model import TAPER_NAMES, ArrayModel
+from stream.errors import UserError
 from stream.estimator import EstimatorConfig, RollingPattern
 from stream.monitor import Monitor
 from tui.cli import UsageError
+
+if TYPE_CHECKING:
+    from stream.live import Driver
+    from tui.beam_screen import BeamOptions
+
+
+def taper_help(default: str = "none") -> str:
+    """The one wording of ``--taper`` in every command's help (with ``metavar="NAME"``)."""
+    return (f"amplitude taper across the elements: {', '.join(TAPER_NAMES)} (chebNN = "
+            f"Dolph-Chebyshev with NN dB side lobes; default {default})")
 
 
 def add_pipeline_arguments(parser: argparse.ArgumentParser) -> None:
@@ -24,8 +38,8 @@ def add_pipeline_arguments(parser: argparse.ArgumentParser) -> None:
                        help="element power pattern cos^Q(theta); 0 = isotropic (default 0)")
     model.add_argument("--steer-deg", type=float, default=0.0, metavar="A",
                        help="steering angle from broadside, degrees (default 0)")
-    model.add_argument("--taper", default="none", choices=TAPER_NAMES,
-                       help="amplitude taper across the elements (default none)")
+    model.add_argument("--taper", default="none", choices=TAPER_NAMES, metavar="NAME",
+                       help=taper_help("none"))
 
     est = parser.add_argument_group("estimator")
     est.add_argument("--bin-deg", type=float, default=1.0, metavar="DEG",
@@ -106,3 +120,35 @@ def settings_record(args: argparse.Namespace, monitor: Monitor) -> dict:
         cfg = monitor.alarms.config
         rec["alarms"] = {k: getattr(cfg, k) for k in getattr(cfg, "__dataclass_fields__", {})}
     return rec
+
+
+def beam_options_from_args(args: argparse.Namespace, mode: str, *,
+                           recorder_factory: Callable[[], Any] | None = None,
+                           recorder: Any | None = None) -> BeamOptions:
+    """The beam screen's plain settings from the screen and notify options."""
+    from tui.beam_screen import BeamOptions
+    refresh_hz = float(getattr(args, "refresh_hz", None) or 10.0)
+    if not refresh_hz > 0:
+        raise UsageError(f"--refresh-hz must be positive, got {refresh_hz}")
+    from tui.alarm_options import notify_settings_from_args
+    bell = bool(notify_settings_from_args(args).bell)
+    return BeamOptions(mode=mode, refresh_hz=refresh_hz, bell=bell,
+                       recorder_factory=recorder_factory, recorder=recorder)
+
+
+def run_app(monitor: Monitor, driver: Driver | None, options: BeamOptions,
+            title: str | None = None) -> int:
+    """Open the beam screen until the user quits; returns the exit status.  A driver
+    that failed is reported as a :class:`~stream.errors.UserError` after the screen
+    closed (it was shown on screen while it was open)."""
+    from tui.app import LobewatchApp
+    app = LobewatchApp(monitor, driver, title=title, **_fields(options))
+    result = app.run()
+    if app.driver_error:
+        raise UserError(app.driver_error)
+    return int(result or 0)
+
+
+def _fields(options: BeamOptions) -> dict[str, Any]:
+    return {f.name: getattr(options, f.name) for f in dataclasses.fields(options)
+            if f.name not in ("on_frame", "exits_app")}

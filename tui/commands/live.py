@@ -70,8 +70,10 @@ def register(subparsers: Any) -> None:
                      help="print JSON Lines to stdout instead of opening the screen")
     out.add_argument("--interval", type=float, default=None, metavar="S",
                      help="seconds between readouts (default 1 headless, 0.1 on screen)")
-    out.add_argument("--record", metavar="FILE",
-                     help="also record the session to FILE (.lwsession) for replay")
+    out.add_argument("--record", metavar="FILE", nargs="?", const="",
+                     help="also record the session for replay: to FILE (.lwsession), or "
+                          "without FILE to a new dated file in the sessions folder "
+                          "(--record-dir, else the user data folder; the path is printed)")
     out.add_argument("--force", action="store_true",
                      help="overwrite FILE given to --record")
     add_screen_arguments(p)
@@ -150,6 +152,10 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError("--hwm must be at least 1 and --max-message-bytes at least 64")
     if args.force and not args.record:
         raise UsageError("--force only applies with --record FILE")
+    if args.record == "":  # --record without FILE: a new file in the sessions folder
+        from replay.session import new_session_path
+        args.record = str(new_session_path(getattr(args, "record_dir", None)))
+        print(f"lobewatch live: recording to {args.record}", file=sys.stderr)
     monitor = build_pipeline(args)
     monitor.bearing = bearing_from_args(args)
     fail_on = _fail_on(args)
@@ -171,7 +177,8 @@ def run(args: argparse.Namespace) -> int:
         from tui.options import beam_options_from_args, run_app
 
         def new_recording() -> Any:
-            path = time.strftime("lobewatch-%Y%m%d-%H%M%S.lwsession")
+            from replay.session import new_session_path  # the sessions folder, not the cwd
+            path = str(new_session_path(getattr(args, "record_dir", None)))
             return _recorder(path, _metadata(args, monitor), False, monitor)
 
         return run_app(monitor, driver, beam_options_from_args(

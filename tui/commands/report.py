@@ -23,6 +23,7 @@ from stream.array_model import TAPER_NAMES, ArrayModel
 from stream.beam import BeamMetrics
 from stream.errors import InputFileError
 from stream.pattern import measure, sweep_arc
+from tui.options import taper_help
 
 #: Step of the grid the model pattern is measured on, degrees.
 MODEL_GRID_DEG: float = 0.05
@@ -84,9 +85,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                    help="steering angle of the main beam, degrees from broadside "
                         "(default 0)")
     m.add_argument("--taper", choices=TAPER_NAMES, metavar="NAME",
-                   help="amplitude taper across the elements: "
-                        f"{', '.join(TAPER_NAMES)} (chebNN = Dolph-Chebyshev with NN dB "
-                        "side lobes; default none)")
+                   help=taper_help("none"))
     p.add_argument("--json", action="store_true",
                    help="print one JSON object per file, one per line, instead of the "
                         "table (angles in deg, levels in dB/dBm; undetermined = null)")

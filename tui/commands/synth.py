@@ -16,6 +16,7 @@ from tui.cli import UsageError
 from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
 from tui.fleet_synth import add_array_arguments, run_arrays
 from tui.iq_options import add_iq_arguments, run_iq_synth
+from tui.options import taper_help
 
 _D = SynthConfig()
 
@@ -64,8 +65,8 @@ def register(subparsers: Any) -> None:
                    help=f"element spacing in wavelengths (default {_D.spacing_wl:g})")
     a.add_argument("--element-exp", type=float, default=_D.element_exp, metavar="Q",
                    help=f"element power pattern cos^Q(theta) (default {_D.element_exp:g})")
-    a.add_argument("--taper", default=_D.taper, choices=TAPER_NAMES,
-                   help=f"amplitude taper (default {_D.taper})")
+    a.add_argument("--taper", default=_D.taper, choices=TAPER_NAMES, metavar="NAME",
+                   help=taper_help(_D.taper))  # one wording everywhere (tui/options.py)
     a.add_argument("--mode", default=_D.mode, choices=("sweep", "mount"),
                    help="sweep: beam steered back and forth over +/-SPAN; mount: the array "
                         f"turns full circles (default {_D.mode})")
