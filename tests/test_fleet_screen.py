@@ -72,6 +72,7 @@ async def test_twelve_streams_fit_80x24_and_enter_opens_the_stream_esc_returns()
         chosen = screen.rows[1].name
         assert isinstance(app.screen, StreamBeamScreen)
         assert app.screen.monitor is next(s for s in stations if s.name == chosen).monitor
+        assert app.screen.status_info(None).mode == f"live · {chosen}"
         await pilot.press("escape")
         await pilot.pause()
         assert app.screen is screen

@@ -214,8 +214,15 @@ def run_fleet(args: argparse.Namespace) -> int:
         if len(fleet) == 1:
             from tui.options import beam_options_from_args, run_app
             st = fleet.stations[0]
+            spec = stream_specs_from_args(args)[0]
+
+            def new_recording() -> Any:  # the screen's record key
+                from replay.recorder import Recorder
+                path = time.strftime("lobewatch-%Y%m%d-%H%M%S.lwsession")
+                return Recorder(path, _metadata(spec, args, st.monitor)).attach(st.monitor)
+
             return run_app(st.monitor, st.driver, beam_options_from_args(
-                args, "live", recorder=st.recorder))
+                args, "live", recorder_factory=new_recording, recorder=st.recorder))
         from tui.fleet_screen import run_fleet_screen
         return run_fleet_screen(fleet, args)
     finally:

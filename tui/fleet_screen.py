@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import dataclasses
 import math
 from dataclasses import dataclass
 from typing import Any
@@ -124,6 +125,15 @@ class StreamBeamScreen(BeamScreen):
     BINDINGS = [Binding("escape", "back", "overview", tooltip="back to the overview"),
                 *BeamScreen.BINDINGS]
 
+    def __init__(self, stream: str, *args: Any, **kw: Any) -> None:
+        super().__init__(*args, **kw)
+        self.stream = stream
+
+    def status_info(self, tick: Any, now: float | None = None) -> Any:
+        """The beam screen's status, with the stream's name beside the mode."""
+        info = super().status_info(tick, now)
+        return dataclasses.replace(info, mode=f"{info.mode} · {self.stream}")
+
     def action_back(self) -> None:
         self.dismiss(None)
 
@@ -201,8 +211,7 @@ class FleetScreen(Screen[None]):
     def open_stream(self, name: str) -> None:
         """Push the beam screen of stream ``name`` (its driver keeps running here)."""
         st = self.fleet.get(name)
-        screen = StreamBeamScreen(st.monitor, None, self.beam_options)
-        screen.sub_title = name
+        screen = StreamBeamScreen(name, st.monitor, None, self.beam_options)
         self.app.push_screen(screen)
 
     def action_quit_app(self) -> None:
