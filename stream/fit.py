@@ -195,6 +195,18 @@ def _scan_starts(a: np.ndarray, p: np.ndarray, n: int, spacing_wl: float, w: np.
     return [(s, o, q) for _, s, o, q in found[:keep]]
 
 
+def _spacing_from_beamwidth(a: np.ndarray, p: np.ndarray, n: int,
+                            peak_dir_deg: float) -> float | None:
+    """Spacing whose uniform-array HPBW matches the measured one: HPBW ~ 0.886 / (N d
+    cos theta0) rad (Balanis ch. 6, broadside approximation, from memory)."""
+    from stream.pattern import measure
+
+    hpbw = measure(a, p).hpbw_deg
+    if hpbw is None or hpbw <= 0:
+        return None
+    return 0.886 / (n * math.radians(hpbw) * max(math.cos(math.radians(peak_dir_deg)), 0.1))
+
+
 def fit_model(angle_deg: np.ndarray, power_db: np.ndarray, model: ArrayModel, *,
               fit_spacing: bool = False, floor_db: float | None = None) -> ModelFit:
     """Least-squares fit of steering, gain, element exponent (and spacing) to a pattern.
@@ -294,14 +306,19 @@ def fit_model(angle_deg: np.ndarray, power_db: np.ndarray, model: ArrayModel, *,
     starts = _scan_starts(sa[::step], sp[::step], n, float(model.spacing_wl), w,
                           10.0 ** (floor0 / 10.0), peak_dir, hpbw0,
                           (max(model.element_exp, 0.5), 1.5, 3.0))
+    spacings = [float(model.spacing_wl)]
+    if fit_spacing:
+        d_est = _spacing_from_beamwidth(a, p, n, peak_dir)
+        if d_est is not None and abs(d_est - spacings[0]) > 0.02:
+            spacings.append(float(np.clip(d_est, SPACING_MIN_WL, SPACING_MAX_WL)))
     best = None
-    for s0, off0, q0 in starts:
+    for (s0, off0, q0), d0 in ((s, d) for s in starts for d in spacings):
         x0 = [float(np.clip(s0, -STEER_LIMIT_DEG + 0.5, STEER_LIMIT_DEG - 0.5)),
               float(np.clip(off0, lo[1] + 1, hi[1] - 1)), q0]
         if floor_free:
             x0.append(float(np.clip(floor0, lo[3] + 0.1, hi[3] - 0.1)))
         if fit_spacing:
-            x0.append(float(model.spacing_wl))
+            x0.append(d0)
         r = least_squares(resid, np.array(x0), jac=jac, bounds=(lo, hi), method="trf",
                           x_scale=np.array(scales))
         if best is None or r.cost < best.cost:
