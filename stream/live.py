@@ -14,7 +14,7 @@ import asyncio
 import contextlib
 import time
 from collections.abc import Callable
-from typing import Any, Protocol
+from typing import Any, NamedTuple, Protocol, runtime_checkable
 
 from stream.batch import SampleBatch
 from stream.monitor import Monitor
@@ -27,17 +27,55 @@ class LiveSource(Protocol):
     async def aclose(self) -> None: ...
 
 
+@runtime_checkable
+class Driver(Protocol):
+    """What a screen runs in a worker: feeds a monitor until ``stop`` is set or its data
+    ends (a :class:`LiveDriver`, a session player, a test double)."""
+
+    async def run(self, stop: asyncio.Event) -> None: ...
+
+
+class Position(NamedTuple):
+    """Where playback stands: current, first and last time (Unix seconds)."""
+
+    t: float
+    t_start: float
+    t_end: float
+
+
+@runtime_checkable
+class PlaybackDriver(Driver, Protocol):
+    """A driver over recorded data that the screen's replay keys control
+    (``replay.player.Player``).  Controls return at once; the next tick shows them."""
+
+    speed: float
+    paused: bool
+
+    @property
+    def position(self) -> Position: ...
+    def pause(self) -> None: ...
+    def resume(self) -> None: ...
+    def set_speed(self, speed: float) -> None: ...
+    def seek(self, delta_s: float) -> None: ...
+    def next_event(self) -> Any: ...
+    def prev_event(self) -> Any: ...
+
+
 def status_change(previous: str | None, state: str) -> str | None:
     """The status event name for a state change, or ``None`` when nothing to report.
 
     waiting -> receiving is ``receiving`` (first samples), stale -> receiving is
-    ``resumed``, anything -> stale is ``stale``, anything -> ended is ``ended``.
+    ``resumed``, anything -> stale is ``stale``, anything -> restarted is ``restarted``
+    (a new publisher; restarted -> receiving says nothing more), anything -> ended is
+    ``ended``.
     """
     if state == previous:
         return None
     if state == "receiving":
+        if previous == "restarted":
+            return None  # the restart was announced; receiving goes on
         return "resumed" if previous == "stale" else "receiving"
-    if state in ("stale", "ended"):
+    if state in ("stale", "restarted", "ended"):
         return state
     if state == "waiting" and previous is None:
         return "waiting"
