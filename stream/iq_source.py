@@ -323,7 +323,7 @@ def lag_text(est: LagEstimate | None) -> str:
     """The lag estimate as a person reads it, e.g. ``lag 41.2 +/- 1.3 ms (3 pairs)``."""
     if est is None:
         return "lag: no estimate yet"
-    sig = "" if est.sigma_s is None else f" +/- {1e3 * est.sigma_s:.1f}"
-    if est.sigma_s is not None and not math.isfinite(est.sigma_s):
-        sig = ""
+    sig = ""
+    if est.sigma_s is not None and math.isfinite(est.sigma_s):
+        sig = f" +/- {1e3 * est.sigma_s:.1f}" if est.sigma_s >= 5e-5 else " +/- <0.1"
     return f"lag {1e3 * est.lag_s:.1f}{sig} ms ({est.pairs} pair{'s' * (est.pairs != 1)})"
