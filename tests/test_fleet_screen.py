@@ -76,3 +76,18 @@ async def test_twelve_streams_fit_80x24_and_enter_opens_the_stream_esc_returns()
         await pilot.press("escape")
         await pilot.pause()
         assert app.screen is screen
+
+
+async def test_more_streams_than_rows_scroll_to_the_cursor():
+    stations = [Station(f"s{i:02d}", Monitor(RollingPattern(EstimatorConfig()), None))
+                for i in range(30)]
+    app = FleetApp(Fleet(stations), refresh_hz=0, run_fleet=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause()
+        table = app.screen.query_one("#fleet-table")
+        assert table.virtual_size.height > table.region.height
+        assert table.scroll_offset.y == 0
+        await pilot.press(*["down"] * 29)
+        await pilot.pause()
+        assert table.cursor_row == 29 and table.scroll_offset.y > 0
+        assert app.screen.selected() == "s29"
