@@ -161,6 +161,9 @@ class Monitor:
             source=source, target_deg=self.target_deg, tolerance_deg=self.tolerance_deg,
             reference=self.reference, expected_hpbw_deg=expected, calibrated=self.calibrated,
             bearing=self.bearing, columns=self._column_diagnosis(snap),
+            age_s=(max(0.0, t - self.last_sample_t)
+                   if self.last_sample_t is not None else None),
+            provisional=self.estimator.sweep_count < 1,
         )
         events = list(self._pending)
         self._pending.clear()

@@ -72,6 +72,28 @@ def test_event_records():
     assert m == {"type": "event", "kind": "marker", "t": 7.0, "text": "hi"}
 
 
+def test_metrics_line_is_honest_about_state_age_provisional_and_nulls():
+    from stream.batch import SampleBatch
+    m = Monitor(RollingPattern(EstimatorConfig()))
+    first = m.tick(100.0)
+    rec = first.metrics_record()
+    assert rec["age_s"] is None and rec["provisional"] is True and rec["stale"] is False
+    assert rec["peak_angle_deg"] is None and rec["notes"]["peak_angle_deg"]
+    a = np.linspace(-30.0, 30.0, 121)
+    m.ingest(SampleBatch.from_arrays(a, -0.02 * a ** 2, rx_t=101.0))  # half a sweep
+    stats = SourceStats(state="stale", rejected={"angle_range": 2},
+                        reject_examples={"angle_range": '{"angle_deg": 999'})
+    rec = json.loads(format_record(m.tick(105.5, stats).metrics_record()))
+    assert rec["stale"] is True and rec["state"] == "stale" and rec["age_s"] == 4.5
+    assert rec["provisional"] is True  # no complete sweep yet
+    assert rec["reject_examples"] == {"angle_range": '{"angle_deg": 999'}
+    # every null has its reason beside it, and only nulls and caveats have one
+    from stream.beam import METRIC_KEYS
+    for k in METRIC_KEYS:
+        if rec[k] is None:
+            assert rec["notes"][k], k
+
+
 # -- run_headless with a scripted driver ---------------------------------------------------
 class ScriptDriver:
     """Feeds synthetic batches and ticks on a fake clock; emits scripted events."""
@@ -201,7 +223,11 @@ def test_live_headless_converges_to_the_model_and_stops_cleanly_on_sigint():
     assert last["hpbw_deg"] == pytest.approx(HPBW_N4, abs=1.0)
     assert last["sll_db"] == pytest.approx(SLL_N4, abs=1.0)
     assert last["peak_power_db"] == pytest.approx(-40.0, abs=1.5)
-    assert 6000 < last["rate_sps"] < 10000
+    # the receive rate is a wall-clock figure (a loaded machine changes it): only its
+    # presence is checked here; rates are measured by ``lobewatch bench``
+    assert last["rate_sps"] > 0
+    assert last["provisional"] is False and last["stale"] is False
+    assert 0.0 <= last["age_s"] < 5.0
 
 
 @pytest.mark.timeout(20)

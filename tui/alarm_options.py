@@ -121,8 +121,13 @@ def add_alarm_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--sll-limit-db", type=_number, metavar="DB",
                    help="side lobe level (relative to the peak, negative) above this raises "
                         f"side lobe rise, dB [{d.sll_limit_db:g}]")
-    g.add_argument("--stale-s", type=_positive, metavar="S",
-                   help=f"no samples for this long raises stale, seconds [{d.stale_s:g}]")
+    # one staleness setting: live's --stale-after marks the stream stale and raises the
+    # stale alarm; --stale-s is its old name (it sets the same value)
+    g.add_argument("--stale-s", dest="stale_after", type=_positive, metavar="S",
+                   default=argparse.SUPPRESS,
+                   help="old name of --stale-after: no samples for this long marks the "
+                        f"stream stale and raises the stale alarm, seconds [{d.stale_s:g}; "
+                        "live: 3]")
     g.add_argument("--input-rate", type=_positive, metavar="PER_S",
                    help="rejected + lost messages per second (averaged over "
                         f"{d.input_window_s:g} s) that raise input trouble "
@@ -288,7 +293,7 @@ _FLAG_FIELDS: dict[str, str] = {
     "target_deg": "target_deg", "tolerance_deg": "tolerance_deg", "watch_deg": "watch_deg",
     "watch_window_deg": "watch_window_deg", "watch_db": "watch_db",
     "broadening_frac": "broadening_frac", "gain_loss_db": "gain_loss_db",
-    "sll_limit_db": "sll_limit_db", "stale_s": "stale_s", "input_rate": "input_rate_per_s",
+    "sll_limit_db": "sll_limit_db", "stale_after": "stale_s", "input_rate": "input_rate_per_s",
     "raise_hold_s": "raise_hold_s", "clear_hold_s": "clear_hold_s",
 }
 

@@ -2,10 +2,16 @@
 
 One JSON object per line, each with a ``type``:
 
-* ``metrics`` -- every tick (:meth:`stream.tick.Tick.metrics_record`);
+* ``metrics`` -- every tick (:meth:`stream.tick.Tick.metrics_record`): the metric values,
+  ``uncertainty`` (1 sigma), ``notes`` (the reason beside every ``null``), the counters,
+  ``state``, ``stale`` (true while no samples arrive: the values are the last ones
+  measured, ``age_s`` old), ``provisional`` (true until one complete sweep) and, once
+  something was refused, ``reject_examples`` (the start of the first refused message
+  per reason, so a publisher's author sees what to fix);
 * ``alarm``   -- each alarm change: ``t``, ``rule``, ``state``, ``severity``, ``value``,
   ``threshold`` (+ ``watch_deg`` for the watch rule) and the rest of the event data;
-* ``status``  -- source state changes (``receiving``, ``stale``, ``resumed``, ``ended``);
+* ``status``  -- source state changes (``receiving``, ``stale``, ``resumed``,
+  ``restarted``, ``ended``);
 * ``event``   -- anything else (reference captured, marker, target, reset);
 * ``summary`` -- one last line when the run ends (end of input, SIGINT or SIGTERM).
 
@@ -152,6 +158,8 @@ class HeadlessPrinter:
                         "messages": src.messages, "rejected": dict(src.rejected),
                         "lost": src.lost, "restarts": src.restarts,
                         "lost_after_restart": src.lost_after_restart,
+                        "shed": src.shed, "senders": src.senders,
+                        "reject_examples": dict(src.reject_examples),
                         "state": src.state, "metrics": tick.metrics.to_dict(),
                         "peak_angle_spread_deg": tick.peak_angle_spread_deg})
         rec["alarms_raised"] = dict(self.alarms)

@@ -58,7 +58,9 @@ def register(subparsers: Any) -> None:
                           "frames of interleaved float32 (angle_deg, power_db) pairs "
                           "(default auto)")
     src.add_argument("--stale-after", type=float, default=3.0, metavar="S",
-                     help="no samples for S seconds marks the stream stale (default 3)")
+                     help="no samples for S seconds marks the stream stale and raises the "
+                          "stale alarm: the one staleness setting (--stale-s is its old "
+                          "name; default 3)")
     src.add_argument("--hwm", type=int, default=DEFAULT_HWM, metavar="N",
                      help=f"receive queue limit, messages (default {DEFAULT_HWM}); beyond it "
                           "messages are dropped and counted as lost")
