@@ -1,8 +1,16 @@
-"""The beam screen driven by a fake driver that pushes known ticks (no sockets)."""
+"""The beam screen in the app, one behaviour per test.
+
+No sleeps and no polling: the refresh timer is off (``refresh_hz=0``) and each test
+sets ``monitor.last_tick`` and calls ``refresh_view()`` itself; the app's clock is
+injected; workers are awaited with ``app.workers.wait_for_complete()``; what is on
+screen is read from the app's own screenshot (public API), not from private state.
+"""
 
 from __future__ import annotations
 
 import asyncio
+import html
+import re
 from dataclasses import replace
 
 import numpy as np
@@ -15,6 +23,8 @@ from stream.estimator import EstimatorConfig, RollingPattern
 from stream.monitor import Monitor
 from stream.tick import SourceStats
 from tui.app import LobewatchApp
+from tui.beam_screen import STALL_S, BeamScreen
+from tui.gc_pacing import GC_FULL_EVERY, GC_MIDDLE_EVERY, GcPacer
 from tui.screens import HelpScreen
 from tui.widgets.alarmlist import AlarmList
 from tui.widgets.polar import PolarPlot
@@ -23,40 +33,29 @@ from tui.widgets.sample import sample_model, sample_tick
 from tui.widgets.status import StatusLine
 
 
-class FakeDriver:
-    """Pushes the given ticks into ``monitor.last_tick`` one per loop turn, then waits
-    for stop.  Records replay-control calls."""
+class FakePlayer:
+    """A playback driver that records the controls it is given; runs until stopped."""
 
-    def __init__(self, monitor: Monitor, ticks: list, *, position=None) -> None:
-        self.monitor = monitor
-        self.ticks = list(ticks)
+    def __init__(self, position=None) -> None:
         self.calls: list[tuple] = []
         self.speed = 1.0
         self.paused = False
         self._position = position
-        self.stopped = False
 
     async def run(self, stop: asyncio.Event) -> None:
-        for tick in self.ticks:
-            self.monitor.last_tick = tick
-            await asyncio.sleep(0.01)
         await stop.wait()
-        self.stopped = True
 
     @property
     def position(self):
         return self._position
 
     def pause(self) -> None:
-        self.paused = True
         self.calls.append(("pause",))
 
     def resume(self) -> None:
-        self.paused = False
         self.calls.append(("resume",))
 
     def set_speed(self, speed: float) -> None:
-        self.speed = speed
         self.calls.append(("set_speed", speed))
 
     def seek(self, delta_s: float) -> None:
@@ -69,6 +68,13 @@ class FakeDriver:
         self.calls.append(("prev_event",))
 
 
+class WaitingDriver:
+    """Runs until stopped."""
+
+    async def run(self, stop: asyncio.Event) -> None:
+        await stop.wait()
+
+
 class FakeRecorder:
     def __init__(self, path: str) -> None:
         self.path = path
@@ -79,31 +85,57 @@ class FakeRecorder:
         self.closed = True
 
 
+class FakeClock:
+    def __init__(self, t: float = 1000.0) -> None:
+        self.t = t
+
+    def __call__(self) -> float:
+        return self.t
+
+
 def make_monitor(alarms=None, model=None) -> Monitor:
     return Monitor(RollingPattern(EstimatorConfig()), alarms, model)
 
 
+def make_app(mon: Monitor | None = None, driver=None, **kw) -> LobewatchApp:
+    mon = mon if mon is not None else make_monitor()
+    if mon.last_tick is None:
+        mon.last_tick = sample_tick()
+    kw.setdefault("refresh_hz", 0)
+    return LobewatchApp(mon, driver, **kw)
+
+
+def beam(app: LobewatchApp) -> BeamScreen:
+    assert isinstance(app.screen, BeamScreen)
+    return app.screen
+
+
 def screen_text(app: LobewatchApp) -> str:
-    return "\n".join(s.text for s in app.screen._compositor.render_strips())
+    """The screen as plain text, rows in order, from the app's SVG screenshot."""
+    svg = app.export_screenshot()
+    rows: dict[int, dict[int, str]] = {}
+    pat = (r'<text class="[^"]*" x="([\d.]+)" y="[\d.]+" textLength="[\d.]+" '
+           r'clip-path="url\(#terminal-(?:\d+-)?line-(\d+)\)">(.*?)</text>')
+    cell_w = 12.2  # Textual's SVG export: 0.61 em at 20 px per cell column
+    for m in re.finditer(pat, svg):
+        col = round(float(m.group(1)) / cell_w)
+        row = rows.setdefault(int(m.group(2)), {})
+        for i, ch in enumerate(html.unescape(m.group(3)).replace("\xa0", " ")):
+            row[col + i] = ch
+    return "\n".join("".join(r.get(i, " ") for i in range(max(r, default=-1) + 1))
+                     for _, r in sorted(rows.items()))
 
 
-async def footer_text(pilot, app: LobewatchApp) -> str:
-    """The footer row once the footer has laid out its keys (it does so after mount)."""
-    for _ in range(100):
-        line = screen_text(app).splitlines()[-1]
-        if "quit" in line:
-            return line
-        await pilot.pause(0.02)
-    return screen_text(app).splitlines()[-1]
+def record_notes(app: LobewatchApp) -> list[str]:
+    notes: list[str] = []
+    original = app.notify
 
+    def notify(message, *a, **kw):
+        notes.append(str(message))
+        return original(message, *a, **kw)
 
-async def settle(pilot, app: LobewatchApp) -> None:
-    """Let the driver push its ticks and the refresh timer show the last one (bounded:
-    5 s, for a busy machine)."""
-    for _ in range(250):
-        await pilot.pause(0.02)
-        if app._shown is not None and app._shown is app.monitor.last_tick:
-            return
+    app.notify = notify  # type: ignore[method-assign]
+    return notes
 
 
 # -- readout ----------------------------------------------------------------------------
@@ -111,10 +143,10 @@ async def settle(pilot, app: LobewatchApp) -> None:
 async def test_readout_shows_the_values_of_a_known_tick() -> None:
     mon = make_monitor(model=sample_model())
     tick = sample_tick()
-    app = LobewatchApp(mon, FakeDriver(mon, [tick]), refresh_hz=20)
-    async with app.run_test(size=(80, 24)) as pilot:
-        await settle(pilot, app)
-        v = app.query_one(Readout).values()
+    mon.last_tick = tick
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)):
+        v = app.screen.query_one(Readout).values()
         m = tick.metrics
         assert v["rd-digits"] == f"{m.peak_angle_deg:+.1f}".rjust(6)
         assert v["rd-v-hpbw"] == f"{m.hpbw_deg:.1f}°"
@@ -130,20 +162,23 @@ async def test_readout_shows_the_values_of_a_known_tick() -> None:
         assert v["rd-spread"].startswith("±0.21°")
         assert v["rd-target"] == "tgt +10.0°±3.0°"
         assert v["rd-offset"] == f"off {m.peak_angle_deg - 10.0:+.1f}° ok"
-        # the figure is on screen, and the label tooltips name the metric keys
         text = screen_text(app)
         assert "PEAK BEARING" in text and "HPBW" in text
-        assert str(app.query_one("#rd-peak-label").tooltip).startswith("peak_angle_deg")
-        grid = app.query_one(MetricGrid)
-        # hovering a label or its value shows a tooltip naming the metric key
+
+
+async def test_hovering_a_metric_names_its_key_and_an_undetermined_one_says_why() -> None:
+    app = make_app(make_monitor(model=sample_model()))
+    async with app.run_test(size=(80, 24)) as pilot:
+        assert str(app.screen.query_one("#rd-peak-label").tooltip).startswith(
+            "peak_angle_deg")
+        grid = app.screen.query_one(MetricGrid)
         await pilot.hover(grid, offset=(1, 0))  # row 0, left pair: HPBW label
         assert str(grid.tooltip).startswith("hpbw_deg")
-        await pilot.hover(grid, offset=(grid._pair_width() + 9, 2))  # row 2, right: value
+        await pilot.hover(grid, offset=(grid.pair_width() + 9, 2))  # row 2, right value
         assert str(grid.tooltip).startswith("sll_angle_deg")
         await pilot.hover(grid, offset=(2, 3))  # row 3, left: peak power
         assert str(grid.tooltip).startswith("peak_power_db")
-        # an undetermined value's tooltip gives the reason
-        await pilot.hover(grid, offset=(grid._pair_width() + 2, 1))  # F/B
+        await pilot.hover(grid, offset=(grid.pair_width() + 2, 1))  # F/B, undetermined
         assert str(grid.tooltip).startswith("front_to_back_db")
         assert "back direction" in str(grid.tooltip)
 
@@ -168,23 +203,15 @@ async def test_readout_shows_what_the_estimator_computed_for_a_simulated_beam() 
     exact array factor as quoted in this project's pattern checks)."""
     model = ArrayModel(n_elements=8, spacing_wl=0.5)
     mon = make_monitor(model=model)
-    t0 = 1_767_268_800.0
-    batches = _sweep_batches(model, 4, t0)
-
-    class SimDriver(FakeDriver):
-        async def run(self, stop: asyncio.Event) -> None:
-            for b in batches:
-                mon.ingest(b)
-            mon.tick(batches[-1].rx_t + 0.01, SourceStats(state="receiving", messages=32))
-            await stop.wait()
-
-    app = LobewatchApp(mon, SimDriver(mon, []), refresh_hz=20)
-    async with app.run_test(size=(80, 24)) as pilot:
-        await settle(pilot, app)
-        tick = mon.last_tick
-        assert tick is not None and tick.metrics.hpbw_deg is not None
+    batches = _sweep_batches(model, 4, 1_767_268_800.0)
+    for b in batches:
+        mon.ingest(b)
+    tick = mon.tick(batches[-1].rx_t + 0.01, SourceStats(state="receiving", messages=32))
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)):
+        assert tick.metrics.hpbw_deg is not None
         assert abs(tick.metrics.hpbw_deg - 12.80) < 0.5
-        v = app.query_one(Readout).values()
+        v = app.screen.query_one(Readout).values()
         assert v["rd-v-hpbw"] == f"{tick.metrics.hpbw_deg:.1f}°"
         # rounded as shown, and never "-0.0"
         assert v["rd-digits"].strip() == f"{round(tick.metrics.peak_angle_deg, 1) + 0.0:+.1f}"
@@ -193,130 +220,46 @@ async def test_readout_shows_what_the_estimator_computed_for_a_simulated_beam() 
         assert v["rd-v-exp"] == f"{tick.expected_hpbw_deg:.1f}°"
 
 
-# -- keys -------------------------------------------------------------------------------
+# -- footer and help --------------------------------------------------------------------
 
 LIVE_KEYS = {"p": "pause", "r": "ref", "c": "unref", "t": "target", "z": "reset",
              "d": "dB/lin", "v": "swap", "a": "ack", "w": "rec", "question_mark": "help",
              "q": "quit"}
 
 
-async def test_footer_lists_every_live_key() -> None:
-    mon = make_monitor()
-    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20)
+async def test_footer_offers_every_live_key_and_no_replay_key() -> None:
+    app = make_app()
     async with app.run_test(size=(100, 24)) as pilot:
-        await settle(pilot, app)
-        shown = {key: b.binding.description for key, b in app.screen.active_bindings.items()
-                 if b.binding.show and b.enabled and app.check_action(b.binding.action, ())}
+        await pilot.pause()
+        screen = beam(app)
+        shown = {key: b.binding.description for key, b in screen.active_bindings.items()
+                 if b.binding.show and b.enabled
+                 and screen.check_action(b.binding.action, ())}
         for key, desc in LIVE_KEYS.items():
             assert shown.get(key) == desc, key
-        footer = await footer_text(pilot, app)
+        footer = screen_text(app).splitlines()[-1]
         for desc in LIVE_KEYS.values():
-            assert desc in footer
-        # replay controls are not offered live
+            assert desc in footer, desc
         assert "space" not in shown and "left" not in shown
 
 
-async def test_each_live_key_does_what_the_footer_says(tmp_path) -> None:
-    engine = AlarmEngine(AlarmConfig())
-    mon = make_monitor(alarms=engine, model=sample_model())
-    tick = sample_tick(target_deg=None, with_reference=False)
-    made: list[FakeRecorder] = []
-
-    def factory() -> FakeRecorder:
-        made.append(FakeRecorder(str(tmp_path / f"s{len(made)}.lwsession")))
-        return made[-1]
-
-    driver = FakeDriver(mon, [tick])
-    app = LobewatchApp(mon, driver, refresh_hz=20, recorder_factory=factory)
-    async with app.run_test(size=(80, 24)) as pilot:
-        await settle(pilot, app)
-        status = app.query_one(StatusLine)
-        # p: pause / resume the display
-        await pilot.press("p")
-        assert app.display_paused and "DISPLAY PAUSED" in status.plain
-        newer = replace(tick, t=tick.t + 1.0)
-        mon.last_tick = newer
-        await pilot.pause(0.15)
-        assert app._shown is tick  # frozen while paused
-        await pilot.press("p")
-        await pilot.pause(0.1)
-        assert not app.display_paused and app._shown is newer
-        # r: capture reference -> drawn at once (dashed reference layer in the polar)
-        await pilot.press("r")
-        assert mon.reference is not None
-        assert app.query_one(PolarPlot).tick.reference is mon.reference
-        # c: clear it
-        await pilot.press("c")
-        assert mon.reference is None
-        # t: target = current peak, with a tolerance
-        await pilot.press("t")
-        assert mon.target_deg == pytest.approx(round(tick.metrics.peak_angle_deg, 1))
-        assert mon.tolerance_deg is not None and mon.tolerance_deg > 0
-        assert app.query_one(Readout).values()["rd-target"].startswith("tgt ")
-        # z: reset the estimator (a reset event is queued for the next tick)
-        mon.estimator.update(SampleBatch.from_arrays([1.0, 2.0], [-30.0, -31.0], 1.0,
-                                                     rx_t=1.0), 1.0)
-        assert mon.estimator.samples == 2
-        await pilot.press("z")
-        assert mon.estimator.samples == 0
-        assert any(e.kind == "reset" for e in mon._pending)
-        # d: polar radius dB <-> linear
-        await pilot.press("d")
-        assert app.query_one(PolarPlot).scale == "linear"
-        await pilot.press("d")
-        assert app.query_one(PolarPlot).scale == "db"
-        # v: swap emphasis
-        h_polar = app.query_one("#polar").size.height
-        await pilot.press("v")
-        await pilot.pause()
-        assert app.query_one("#body").has_class("-trace-first")
-        assert app.query_one("#polar").size.height < h_polar
-        assert app.query_one("#trace").size.height > app.query_one("#polar").size.height
-        # a: acknowledge (engine asked to acknowledge)
-        calls = []
-        engine.acknowledge = lambda key=None: calls.append(key) or []  # type: ignore
-        await pilot.press("a")
-        assert calls == [None]
-        # w: start recording, status shows file and size; w again stops it
-        await pilot.press("w")
-        assert app.recorder is made[0]
-        app.refresh_view()
-        assert "REC s0.lwsession 12.3 kB" in status.plain
-        await pilot.press("w")
-        assert app.recorder is None and made[0].closed
-        # ?: help, escape closes it
+async def test_help_page_lists_every_offered_key_from_the_bindings() -> None:
+    app = make_app()
+    async with app.run_test(size=(100, 40)) as pilot:
+        keys = beam(app).help_keys()
         await pilot.press("question_mark")
-        await pilot.pause()
         assert isinstance(app.screen, HelpScreen)
-        await pilot.press("escape")
-        await pilot.pause()
-        assert not isinstance(app.screen, HelpScreen)
-        # q: quit, stopping the driver
-        await pilot.press("q")
-        await pilot.pause()
-    assert app.return_value == 0
-    assert app._stop.is_set()
-
-
-async def test_recording_unavailable_and_no_alarm_rules_are_said() -> None:
-    mon = make_monitor()
-    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20)
-    async with app.run_test(size=(80, 24), notifications=True) as pilot:
-        await settle(pilot, app)
-        await pilot.press("w")
-        await pilot.press("a")
-        msgs = [n.message for n in app._notifications]
-        assert any("Recording is unavailable" in m for m in msgs)
-        assert any("No alarm rules configured" in m for m in msgs)
-        assert app.query_one(AlarmList).lines == ["no alarm rules configured"]
+        body = " ".join(str(w.render()) for w in app.screen.query("Static"))
+        assert ("p", "pause / resume the display (data keeps flowing in)") in keys
+        assert all(not text.startswith("replay:") for _, text in keys)
+        for _, text in keys:
+            assert text in body, text
 
 
 async def test_help_page_explains_readings_and_carries_safety() -> None:
-    mon = make_monitor()
-    app = LobewatchApp(mon, None, refresh_hz=0)
+    app = make_app()
     async with app.run_test(size=(100, 40)) as pilot:
         await pilot.press("question_mark")
-        await pilot.pause()
         body = " ".join(str(w.render()) for w in app.screen.query("Static"))
         for word in ("HPBW", "FNBW", "SLL", "F/B", "half-power", "STALE",
                      "main beam", "RF exposure", "Work at height", "licensed",
@@ -324,28 +267,255 @@ async def test_help_page_explains_readings_and_carries_safety() -> None:
             assert word in body, word
 
 
-async def test_replay_keys_call_the_player() -> None:
+async def test_escape_closes_the_help_page() -> None:
+    app = make_app()
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("question_mark")
+        await pilot.press("escape")
+        assert isinstance(app.screen, BeamScreen)
+
+
+# -- live keys, one each -----------------------------------------------------------------
+
+async def test_p_freezes_the_display_and_says_so() -> None:
     mon = make_monitor()
+    tick = sample_tick()
+    mon.last_tick = tick
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("p")
+        mon.last_tick = replace(tick, t=tick.t + 1.0)
+        beam(app).refresh_view()
+        assert beam(app).shown_tick is tick
+        assert "DISPLAY PAUSED" in app.screen.query_one(StatusLine).plain
+
+
+async def test_p_again_shows_the_latest_tick() -> None:
+    mon = make_monitor()
+    tick = sample_tick()
+    mon.last_tick = tick
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("p")
+        newer = replace(tick, t=tick.t + 1.0)
+        mon.last_tick = newer
+        await pilot.press("p")
+        assert beam(app).shown_tick is newer
+        assert "DISPLAY PAUSED" not in app.screen.query_one(StatusLine).plain
+
+
+async def test_r_captures_the_reference_and_draws_it_at_once() -> None:
+    mon = make_monitor(model=sample_model())
+    mon.last_tick = sample_tick(with_reference=False)
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("r")
+        assert mon.reference is not None
+        assert app.screen.query_one(PolarPlot).tick.reference is mon.reference
+
+
+async def test_c_clears_the_reference() -> None:
+    mon = make_monitor()
+    mon.last_tick = sample_tick(with_reference=False)
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("r")
+        await pilot.press("c")
+        assert mon.reference is None
+        assert app.screen.query_one(PolarPlot).tick.reference is None
+
+
+async def test_t_sets_the_target_to_the_current_peak_with_a_tolerance() -> None:
+    mon = make_monitor()
+    tick = sample_tick(target_deg=None)
+    mon.last_tick = tick
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("t")
+        assert mon.target_deg == pytest.approx(round(tick.metrics.peak_angle_deg, 1))
+        assert mon.tolerance_deg is not None and mon.tolerance_deg > 0
+        assert app.screen.query_one(Readout).values()["rd-target"].startswith("tgt ")
+
+
+async def test_z_resets_the_estimator_and_the_next_readout_says_so() -> None:
+    mon = make_monitor()
+    mon.estimator.update(SampleBatch.from_arrays([1.0, 2.0], [-30.0, -31.0], 1.0,
+                                                 rx_t=1.0), 1.0)
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("z")
+        assert mon.estimator.samples == 0
+        tick = mon.tick(2.0, SourceStats(state="receiving"))
+        assert any(e.kind == "reset" for e in tick.events)
+
+
+async def test_d_switches_the_polar_radius_between_db_and_linear() -> None:
+    app = make_app()
+    async with app.run_test(size=(80, 24)) as pilot:
+        polar = app.screen.query_one(PolarPlot)
+        await pilot.press("d")
+        assert polar.scale == "linear"
+        await pilot.press("d")
+        assert polar.scale == "db"
+
+
+async def test_v_gives_the_trace_the_larger_share() -> None:
+    app = make_app(make_monitor(model=sample_model()))
+    async with app.run_test(size=(80, 24)) as pilot:
+        polar, trace = app.screen.query_one("#polar"), app.screen.query_one("#trace")
+        h_polar = polar.size.height
+        await pilot.press("v")
+        await pilot.pause()
+        assert polar.size.height < h_polar
+        assert trace.size.height > polar.size.height
+
+
+async def test_a_acknowledges_the_active_alarms() -> None:
+    engine = AlarmEngine(AlarmConfig())
+    calls: list = []
+    engine.acknowledge = lambda key=None: calls.append(key) or []  # type: ignore
+    app = make_app(make_monitor(alarms=engine))
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("a")
+        assert calls == [None]
+
+
+async def test_w_starts_a_recording_in_a_worker_and_shows_its_file_and_size(tmp_path) -> None:
+    made: list[FakeRecorder] = []
+
+    def factory() -> FakeRecorder:
+        made.append(FakeRecorder(str(tmp_path / "s0.lwsession")))
+        return made[-1]
+
+    app = make_app(recorder_factory=factory)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("w")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert beam(app).recorder is made[0]
+        assert "REC s0.lwsession 12.3 kB" in app.screen.query_one(StatusLine).plain
+
+
+async def test_w_again_closes_the_recording_in_a_worker_and_says_its_size(tmp_path) -> None:
+    rec = FakeRecorder(str(tmp_path / "s0.lwsession"))
+    app = make_app(recorder=rec, recorder_factory=lambda: FakeRecorder("unused"))
+    notes = record_notes(app)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("w")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert rec.closed and beam(app).recorder is None
+        assert any("Recording stopped" in n and "12.3 kB" in n for n in notes)
+        assert "REC" not in app.screen.query_one(StatusLine).plain
+
+
+async def test_a_recording_that_cannot_start_is_said(tmp_path) -> None:
+    from stream.errors import UserError
+
+    def factory():
+        raise UserError("disk full: cannot create the session file")
+
+    app = make_app(recorder_factory=factory)
+    notes = record_notes(app)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("w")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert beam(app).recorder is None
+        assert any("disk full" in n for n in notes)
+
+
+async def test_recording_unavailable_is_said() -> None:
+    app = make_app()
+    notes = record_notes(app)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("w")
+        assert any("Recording is unavailable" in n for n in notes)
+
+
+async def test_no_alarm_rules_is_said_and_shown() -> None:
+    app = make_app()
+    notes = record_notes(app)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("a")
+        assert any("No alarm rules configured" in n for n in notes)
+        assert app.screen.query_one(AlarmList).lines == ["no alarm rules configured"]
+
+
+async def test_q_quits_and_tells_the_driver_to_stop() -> None:
+    app = make_app(driver=WaitingDriver())
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = beam(app)
+        await pilot.press("q")
+    assert app.return_value == 0
+    assert screen.stop_event.is_set()
+
+
+async def test_a_recording_started_by_the_command_line_shows_at_once(tmp_path) -> None:
+    """`lobewatch live --record FILE` starts recording before the screen opens."""
+    rec = FakeRecorder(str(tmp_path / "site.lwsession"))
+    app = make_app(recorder=rec)
+    async with app.run_test(size=(80, 24)):
+        assert "REC site.lwsession 12.3 kB" in app.screen.query_one(StatusLine).plain
+
+
+async def test_the_recording_size_is_read_at_most_once_a_second(tmp_path) -> None:
+    rec = FakeRecorder(str(tmp_path / "site.lwsession"))
+    clock = FakeClock()
+    app = make_app(recorder=rec, clock=clock)
+    async with app.run_test(size=(80, 24)):
+        status = app.screen.query_one(StatusLine)
+        rec.size_bytes = 2_000_000
+        clock.t += 0.5
+        beam(app).refresh_view()
+        assert "12.3 kB" in status.plain
+        clock.t += 0.5
+        beam(app).refresh_view()
+        assert "2.0 MB" in status.plain
+
+
+# -- replay keys ------------------------------------------------------------------------
+
+@pytest.mark.parametrize(("keys", "calls"), [
+    (["space"], [("pause",)]),
+    (["space", "space"], [("pause",), ("resume",)]),
+    (["plus"], [("set_speed", 2.0)]),
+    (["minus"], [("set_speed", 0.5)]),
+    (["left"], [("seek", -10.0)]),
+    (["right"], [("seek", 10.0)]),
+    (["pageup"], [("seek", -60.0)]),
+    (["pagedown"], [("seek", 60.0)]),
+    (["left_square_bracket"], [("prev_event",)]),
+    (["right_square_bracket"], [("next_event",)]),
+])
+async def test_replay_key_calls_the_player(keys, calls) -> None:
     t = sample_tick()
-    driver = FakeDriver(mon, [t], position=(t.t, t.t - 100.0, t.t + 300.0))
-    app = LobewatchApp(mon, driver, mode="replay", refresh_hz=20)
+    player = FakePlayer(position=(t.t, t.t - 100.0, t.t + 300.0))
+    app = make_app(driver=player, mode="replay")
     async with app.run_test(size=(160, 30)) as pilot:
-        await settle(pilot, app)
-        for key in ("space", "plus", "minus", "minus", "left", "right", "pageup",
-                    "pagedown", "left_square_bracket", "right_square_bracket", "space"):
+        for key in keys:
             await pilot.press(key)
-        assert driver.calls == [
-            ("pause",), ("set_speed", 2.0), ("set_speed", 1.0), ("set_speed", 0.5),
-            ("seek", -10.0), ("seek", 10.0), ("seek", -60.0), ("seek", 60.0),
-            ("prev_event",), ("next_event",), ("resume",)]
-        app.refresh_view()
-        plain = app.query_one(StatusLine).plain
+        assert player.calls == calls
+
+
+async def test_replay_status_shows_speed_and_position() -> None:
+    t = sample_tick()
+    player = FakePlayer(position=(t.t, t.t - 100.0, t.t + 300.0))
+    app = make_app(driver=player, mode="replay")
+    async with app.run_test(size=(160, 30)) as pilot:
+        await pilot.press("minus")
+        plain = app.screen.query_one(StatusLine).plain
         assert "replay" in plain and "0.5×" in plain and "01:40/06:40" in plain
         assert "╸" in plain  # the position bar
-        footer = await footer_text(pilot, app)
+
+
+async def test_replay_footer_offers_the_playback_keys_and_not_recording() -> None:
+    app = make_app(driver=FakePlayer(), mode="replay")
+    async with app.run_test(size=(160, 30)) as pilot:
+        await pilot.pause()
+        footer = screen_text(app).splitlines()[-1]
         for word in ("play", "speed", "±10s", "±1m", "event", "help", "quit"):
-            assert word in footer
-        # recording is not offered in replay
+            assert word in footer, word
         assert "rec" not in footer.split()
 
 
@@ -353,69 +523,71 @@ async def test_replay_keys_call_the_player() -> None:
 
 async def test_dead_source_shows_stale() -> None:
     mon = make_monitor()
-    live = sample_tick()
-    dead = replace(sample_tick(state="stale"), t=live.t + 42.0)
-    app = LobewatchApp(mon, FakeDriver(mon, [live, dead]), refresh_hz=20)
-    async with app.run_test(size=(80, 24)) as pilot:
-        await settle(pilot, app)
-        assert mon.last_tick is dead
-        status = app.query_one(StatusLine)
-        assert "STALE" in status.plain
-        assert status.has_class("-stale")
-        assert app.query_one("#rd-source").has_class("-stale")
+    mon.last_tick = sample_tick(state="stale")
+    app = make_app(mon)
+    async with app.run_test(size=(80, 24)):
+        status = app.screen.query_one(StatusLine)
+        assert "STALE" in status.plain and status.has_class("-stale")
+        assert app.screen.query_one("#rd-source").has_class("-stale")
         assert "STALE" in screen_text(app).splitlines()[0]
 
 
-async def test_a_pipeline_that_stops_ticking_is_flagged(monkeypatch) -> None:
-    import tui.app as appmod
-    monkeypatch.setattr(appmod, "STALL_S", 0.1)
-    mon = make_monitor()
-    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20)
-    async with app.run_test(size=(80, 24)) as pilot:
-        await settle(pilot, app)
-        await pilot.pause(0.3)
-        assert "no update" in app.query_one(StatusLine).plain
+async def test_a_pipeline_that_stops_ticking_is_flagged() -> None:
+    clock = FakeClock()
+    app = make_app(driver=WaitingDriver(), clock=clock)
+    async with app.run_test(size=(80, 24)):
+        status = app.screen.query_one(StatusLine)
+        clock.t += STALL_S / 2
+        beam(app).refresh_view()
+        assert "no update" not in status.plain
+        clock.t += STALL_S
+        beam(app).refresh_view()
+        assert "no update" in status.plain
 
 
 async def test_driver_failure_is_shown_not_raised() -> None:
-    mon = make_monitor()
-
-    class Broken(FakeDriver):
+    class Broken:
         async def run(self, stop):
             raise RuntimeError("socket exploded")
 
-    app = LobewatchApp(mon, Broken(mon, []), refresh_hz=20)
-    async with app.run_test(size=(80, 24), notifications=True) as pilot:
-        await pilot.pause(0.1)
-        assert app.driver_done and "socket exploded" in (app.driver_error or "")
-        assert any("socket exploded" in n.message for n in app._notifications)
-        assert "ended" in app.query_one(StatusLine).plain
+    app = make_app(driver=Broken())
+    notes = record_notes(app)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert "socket exploded" in (app.driver_error or "")
+        assert any("socket exploded" in n for n in notes)
+        assert "ended" in app.screen.query_one(StatusLine).plain
+
+
+class TwoAlarms:
+    def active(self):
+        return [
+            AlarmStatus("drift", "drift", "raised", "minor", 1767269000.0, 2.5, 2.0,
+                        "deg", "peak off target", acknowledged=True),
+            AlarmStatus("gain_loss", "gain_loss", "raised", "critical", 1767269100.0,
+                        7.2, 3.0, "dB", "gain down"),
+        ]
+
+    def acknowledge(self, key=None):
+        return []
 
 
 async def test_alarm_list_shows_active_alarms_worst_first() -> None:
-    class Engine:
-        def active(self):
-            return [
-                AlarmStatus("drift", "drift", "raised", "minor", 1767269000.0, 2.5, 2.0,
-                            "deg", "peak off target", acknowledged=True),
-                AlarmStatus("gain_loss", "gain_loss", "raised", "critical", 1767269100.0,
-                            7.2, 3.0, "dB", "gain down"),
-            ]
-
-        def acknowledge(self, key=None):
-            return []
-
-    mon = make_monitor(alarms=Engine())
-    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20)
-    async with app.run_test(size=(160, 30)) as pilot:
-        await settle(pilot, app)
-        lines = app.query_one(AlarmList).lines
+    app = make_app(make_monitor(alarms=TwoAlarms()))
+    async with app.run_test(size=(160, 30)):
+        lines = app.screen.query_one(AlarmList).lines
         assert lines[0].startswith("CRIT ! ") and "gain_loss 7.2 dB vs 3.0 dB" in lines[0]
         assert lines[1].startswith("MINR ✓ ") and "drift 2.5° vs 2.0°" in lines[1]
-        # narrow screen: shorter forms, still value and threshold, nothing cut
+
+
+async def test_alarm_rows_keep_value_and_threshold_on_a_narrow_screen() -> None:
+    app = make_app(make_monitor(alarms=TwoAlarms()))
+    async with app.run_test(size=(160, 30)) as pilot:
         await pilot.resize_terminal(80, 24)
-        await pilot.pause(0.2)
-        alarm_list = app.query_one(AlarmList)
+        await pilot.pause()
+        beam(app).refresh_view()
+        alarm_list = app.screen.query_one(AlarmList)
         lines = alarm_list.lines
         assert "gain 7.2 dB vs 3.0 dB" in lines[0] and "drift 2.5° vs 2.0°" in lines[1]
         assert all(len(line) <= alarm_list.content_size.width for line in lines)
@@ -425,28 +597,22 @@ async def test_alarm_list_shows_active_alarms_worst_first() -> None:
 
 @pytest.mark.parametrize("size", [(80, 24), (160, 50)])
 async def test_screen_fits_and_resizes(size) -> None:
-    mon = make_monitor(model=sample_model())
-    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20)
+    app = make_app(make_monitor(model=sample_model()))
     async with app.run_test(size=(120, 40)) as pilot:
-        await settle(pilot, app)
         await pilot.resize_terminal(*size)
-        await pilot.pause(0.15)
+        await pilot.pause()
         w, h = size
         assert app.screen.size == (w, h)
         for wid in ("#status", "#polar", "#trace", "#readout", "#trend", "#alarms"):
-            r = app.query_one(wid).region
+            r = app.screen.query_one(wid).region
             assert r.width > 0 and r.height > 0, wid
             assert r.right <= w and r.bottom <= h, wid
-        # the polar widget was re-rasterised for its new size
-        polar = app.query_one(PolarPlot)
-        assert polar.geometry is not None and polar.geometry.width == polar.size.width
         text = screen_text(app)
-        lines = text.splitlines()
-        assert len(lines) == h
-        assert "PEAK BEARING" in text and "HPBW" in text and "FNBW" in text
-        assert "SLL" in text and "sweeps" in text and "rej" in text
-        assert "◆" in text  # the peak marker
-        assert "quit" in await footer_text(pilot, app)
+        polar = app.screen.query_one(PolarPlot)
+        assert polar.geometry is not None and polar.geometry.width == polar.size.width
+        assert len(text.splitlines()) == h
+        for word in ("PEAK BEARING", "HPBW", "FNBW", "SLL", "sweeps", "rej", "◆", "quit"):
+            assert word in text, word
 
 
 async def test_no_color_keeps_every_mark_readable(monkeypatch) -> None:
@@ -454,42 +620,33 @@ async def test_no_color_keeps_every_mark_readable(monkeypatch) -> None:
     told apart by shape and words: peak diamond, target ring, legend patterns, states."""
     monkeypatch.setenv("NO_COLOR", "1")
     mon = make_monitor(model=sample_model())
-    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick(target_deg=-20.0)]), refresh_hz=20)
+    mon.last_tick = sample_tick(target_deg=-20.0)
+    app = make_app(mon)
     assert app.no_color
-    async with app.run_test(size=(120, 40)) as pilot:
-        await settle(pilot, app)
+    async with app.run_test(size=(120, 40)):
         text = screen_text(app)
         for mark in ("◆", "◎", "━ live", "╌ −3dB", "╍ ref", "┈ model", "┊ target",
                      "● receiving", "OUT"):
             assert mark in text, mark
 
 
+# -- garbage-collector pacing -------------------------------------------------------------
+
 def test_garbage_is_collected_between_frames_on_a_schedule(monkeypatch) -> None:
     """Young generation after every frame, middle every 20th, full every 600th."""
     import gc
 
-    import tui.app as appmod
     calls: list[int] = []
     monkeypatch.setattr(gc, "collect", lambda generation=2: calls.append(generation) or 0)
-    app = LobewatchApp(make_monitor(), None, refresh_hz=0)
-    for _ in range(appmod.GC_FULL_EVERY):
-        app.collect_between_frames()
+    pacer = GcPacer()
+    for _ in range(GC_FULL_EVERY):
+        pacer.after_frame()
     assert calls.count(2) == 1 and calls[-1] == 2
-    assert calls.count(1) == appmod.GC_FULL_EVERY // appmod.GC_MIDDLE_EVERY - 1
+    assert calls.count(1) == GC_FULL_EVERY // GC_MIDDLE_EVERY - 1
     assert calls.count(0) == len(calls) - calls.count(1) - 1
 
 
-async def test_a_recording_started_by_the_command_line_shows_and_the_key_stops_it(
-        tmp_path) -> None:
-    """`lobewatch live --record FILE` starts recording before the screen opens: the
-    status line shows it at once and the record key stops that same recording."""
-    mon = make_monitor()
-    rec = FakeRecorder(str(tmp_path / "site.lwsession"))
-    app = LobewatchApp(mon, FakeDriver(mon, [sample_tick()]), refresh_hz=20, recorder=rec,
-                       recorder_factory=lambda: FakeRecorder(str(tmp_path / "other.lwsession")))
-    async with app.run_test(size=(80, 24)) as pilot:
-        await settle(pilot, app)
-        app.refresh_view()
-        assert "REC site.lwsession 12.3 kB" in app.query_one(StatusLine).plain
-        await pilot.press("w")
-        assert app.recorder is None and rec.closed
+async def test_the_app_leaves_the_collector_alone_under_tests() -> None:
+    app = make_app()
+    async with app.run_test(size=(80, 24)):
+        assert not app.gc_pacer.active

@@ -122,7 +122,7 @@ async def test_polar_peak_marker_lands_in_the_hand_computed_cell(peak, lo, hi,
     polar = PolarPlot()
     app = OneWidget(polar)
     async with app.run_test(size=(40, 20)) as pilot:
-        polar.show(gaussian_tick(peak, lo=lo, hi=hi))
+        polar.tick = gaussian_tick(peak, lo=lo, hi=hi)
         await pilot.pause()
         lines = [polar.render_line(y).text for y in range(20)]
         assert find(lines, PEAK_GLYPH) == [expected]
@@ -134,7 +134,7 @@ async def test_polar_target_marker_and_wedge_are_drawn() -> None:
     polar = PolarPlot()
     app = OneWidget(polar)
     async with app.run_test(size=(40, 20)) as pilot:
-        polar.show(gaussian_tick(20.0, lo=-90, hi=90, target=-40.0, tol=5.0))
+        polar.tick = gaussian_tick(20.0, lo=-90, hi=90, target=-40.0, tol=5.0)
         await pilot.pause()
         lines = [polar.render_line(y).text for y in range(20)]
         # target glyph on the rim at -40: x = 40 - 31 sin 40 = 20.074 -> dot 20 -> col 10;
@@ -157,10 +157,10 @@ async def test_polar_scale_toggle_moves_the_half_power_ring() -> None:
     polar = PolarPlot()
     app = OneWidget(polar)
     async with app.run_test(size=(40, 20)) as pilot:
-        polar.show(gaussian_tick(0.0, lo=-90, hi=90))
+        polar.tick = gaussian_tick(0.0, lo=-90, hi=90)
         await pilot.pause()
         db_text = "\n".join(polar.render_line(y).text for y in range(20))
-        assert polar.toggle_scale() == "linear"
+        polar.scale = "linear"
         await pilot.pause()
         lin_text = "\n".join(polar.render_line(y).text for y in range(20))
         assert db_text != lin_text and "polar · linear" in lin_text and "½" in lin_text

@@ -241,7 +241,7 @@ def _recorder_factory(args: argparse.Namespace, monitor: Monitor,
 def run(args: argparse.Namespace) -> int:
     from stream.live import LiveDriver
     from stream.zmq_source import ZmqSource
-    from tui.app import run_app
+    from tui.options import beam_options_from_args, run_app
 
     if not args.interval > 0:
         raise UsageError(f"--interval must be positive, got {args.interval}")
@@ -259,9 +259,9 @@ def run(args: argparse.Namespace) -> int:
     try:
         source = ZmqSource(endpoint, stale_after_s=3.0)
         driver = LiveDriver(source, monitor, interval_s=args.interval)
-        args.title = f"lobewatch demo · {config.scenario}"
-        return run_app(args, monitor, driver, "demo",
-                       recorder_factory=_recorder_factory(args, monitor, config))
+        options = beam_options_from_args(
+            args, "demo", recorder_factory=_recorder_factory(args, monitor, config))
+        return run_app(monitor, driver, options, title=f"lobewatch demo · {config.scenario}")
     finally:
         if source is not None:
             with contextlib.suppress(Exception):

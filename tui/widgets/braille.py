@@ -17,7 +17,6 @@ from collections.abc import Sequence
 import numpy as np
 from rich.segment import Segment
 from rich.style import Style
-from textual.geometry import Size
 from textual.strip import Strip
 from textual.widget import Widget
 
@@ -239,9 +238,11 @@ class BrailleCanvas:
 class CanvasWidget(Widget):
     """Base for widgets that paint a :class:`BrailleCanvas` through the Line API.
 
-    Subclasses implement :meth:`draw`; :meth:`redraw` rasterises once and keeps the
-    strips, so ``render_line`` is a list lookup.  Component class ``name`` styles are
-    looked up for every style name a subclass uses (``--`` prefixed by the CSS name).
+    Subclasses implement :meth:`draw`.  One cache rule: the strips are rasterised
+    lazily by ``render_line`` and reused while :meth:`picture_key` is unchanged (by
+    default: the widget's size and a counter :meth:`invalidate` bumps, which every
+    ``watch_*`` of a subclass calls).  Component class ``name`` styles are looked up for
+    every style name a subclass uses (``--`` prefixed by the CSS name).
     """
 
     DEFAULT_CSS = """
@@ -252,12 +253,22 @@ class CanvasWidget(Widget):
                  classes: str | None = None) -> None:
         super().__init__(name=name, id=id, classes=classes)
         self._strips: list[Strip] = []
-        self._drawn_size: Size | None = None
+        self._strips_key: object = None
+        self._version = 0
         self._style_cache: dict[str, Style] = {}
         self._base: Style | None = None
 
     def draw(self, canvas: BrailleCanvas) -> None:  # pragma: no cover - abstract
         raise NotImplementedError
+
+    def picture_key(self) -> object:
+        """Everything the picture depends on; a new key means rasterise again."""
+        return (self._version, self.size)
+
+    def invalidate(self) -> None:
+        """The picture changed: rasterise on the next repaint."""
+        self._version += 1
+        self.refresh()
 
     def _styles(self, canvas: BrailleCanvas) -> dict[str, Style]:
         """Rich styles of the component classes in use (cached until the CSS changes)."""
@@ -280,29 +291,28 @@ class CanvasWidget(Widget):
             self.draw(canvas)
         return canvas
 
-    def redraw(self) -> None:
-        """Rasterise now and repaint."""
-        if not self.is_mounted:
-            return
-        canvas = self.make_canvas()
-        self._strips = canvas.to_strips(self._styles(canvas), self._base_style())
-        self._drawn_size = self.size
-        self.refresh()
+    def rasterise(self) -> list[Strip]:
+        """The strips for the current picture (drawn only when its key changed)."""
+        key = self.picture_key()
+        if key != self._strips_key or not self._strips:
+            canvas = self.make_canvas()
+            self._strips = canvas.to_strips(self._styles(canvas), self._base_style())
+            self._strips_key = key
+        return self._strips
 
-    def on_resize(self) -> None:
-        self.redraw()
+    def show(self, tick: object) -> None:
+        """Set ``tick`` and rasterise at once (the redraw benchmark times this)."""
+        self.tick = tick  # the subclass's reactive
+        self.rasterise()
 
     def notify_style_update(self) -> None:
         super().notify_style_update()
         self._style_cache = {}
         self._base = None
-        self._strips = []
+        self._strips_key = None
 
     def render_line(self, y: int) -> Strip:
-        if self._drawn_size != self.size or not self._strips:
-            canvas = self.make_canvas()
-            self._strips = canvas.to_strips(self._styles(canvas), self._base_style())
-            self._drawn_size = self.size
-        if 0 <= y < len(self._strips):
-            return self._strips[y]
+        strips = self.rasterise()
+        if 0 <= y < len(strips):
+            return strips[y]
         return Strip.blank(self.size.width, self._base_style())

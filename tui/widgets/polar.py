@@ -23,6 +23,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from textual.reactive import reactive
 
 from stream.beam import HALF_POWER_DB
 from stream.tick import Tick
@@ -131,25 +132,25 @@ class PolarPlot(CanvasWidget):
     PolarPlot { height: 1fr; width: 1fr; }
     """
 
+    #: The readout drawn (a Tick holds arrays, so every assignment counts as a change).
+    tick: reactive[Tick | None] = reactive(None, always_update=True, repaint=False)
+    #: Radius scale: "db" (rings every 10 dB) or "linear" (power relative to the peak).
+    scale: reactive[str] = reactive("db", repaint=False)
+
     def __init__(self, *, name: str | None = None, id: str | None = None,
                  classes: str | None = None) -> None:
         super().__init__(name=name, id=id, classes=classes)
-        self.tick: Tick | None = None
-        self.scale = "db"
         self.geometry: PolarGeometry | None = None
         # Grid layer + labels and the per-dot polar coordinates depend only on the
         # geometry and scale: computed once per size, reused every frame.
         self._grid_cache: dict[tuple, tuple[np.ndarray, list[tuple]]] = {}
         self._coord_cache: dict[tuple, tuple] = {}
 
-    def show(self, tick: Tick | None) -> None:
-        self.tick = tick
-        self.redraw()
+    def watch_tick(self) -> None:
+        self.invalidate()
 
-    def toggle_scale(self) -> str:
-        self.scale = "linear" if self.scale == "db" else "db"
-        self.redraw()
-        return self.scale
+    def watch_scale(self) -> None:
+        self.invalidate()
 
     # -- drawing ---------------------------------------------------------------------
     def draw(self, canvas: BrailleCanvas) -> None:

@@ -8,6 +8,7 @@ tooltip gives the reason.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 from rich.segment import Segment
@@ -15,6 +16,7 @@ from rich.style import Style
 from textual import events
 from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
+from textual.reactive import reactive
 from textual.strip import Strip
 from textual.widget import Widget
 from textual.widgets import Digits, Static
@@ -28,28 +30,46 @@ BIG_CHARS = 6
 
 @dataclass(frozen=True, slots=True)
 class Field:
-    """One label/value pair: ``key`` names the metric (tooltip), ``label`` is shown."""
+    """One label/value pair: ``key`` names the metric (tooltip), ``label`` is shown,
+    ``text`` formats the value from a tick (a dash when undetermined)."""
 
     id: str
     label: str
     key: str
     help: str
+    text: Callable[[Tick], str]
+
+
+def _unit_db(tick: Tick) -> str:
+    return " dBm" if tick.calibrated else " dB"
 
 
 #: The label/value pairs of the grid, in reading order (two pairs per row).
 FIELDS: tuple[Field, ...] = (
-    Field("hpbw", "HPBW", "hpbw_deg", "half-power (-3 dB) beamwidth"),
-    Field("bw10", "−10dB", "bw10_deg", "beamwidth between the -10 dB points"),
-    Field("fnbw", "FNBW", "fnbw_deg", "width between the first nulls either side of the peak"),
-    Field("fb", "F/B", "front_to_back_db", "front-to-back ratio (needs data behind the beam)"),
-    Field("sll", "SLL", "sll_db", "highest side lobe relative to the peak"),
-    Field("slla", "at", "sll_angle_deg", "bearing of the highest side lobe"),
-    Field("pwr", "peak", "peak_power_db", "power at the peak (dBm if calibrated, else dB)"),
-    Field("exp", "model", "expected_hpbw_deg", "HPBW the array model expects"),
-    Field("rate", "rate", "rate_sps", "samples per second taken in"),
-    Field("sweeps", "sweeps", "sweeps", "complete sweeps seen since the start or reset"),
-    Field("lost", "lost", "lost", "messages missing from the sequence numbering"),
-    Field("rej", "rej", "rejected", "messages rejected by the decoder (all reasons)"),
+    Field("hpbw", "HPBW", "hpbw_deg", "half-power (-3 dB) beamwidth",
+          lambda t: fmt(t.metrics.hpbw_deg, "°")),
+    Field("bw10", "−10dB", "bw10_deg", "beamwidth between the -10 dB points",
+          lambda t: fmt(t.metrics.bw10_deg, "°")),
+    Field("fnbw", "FNBW", "fnbw_deg", "width between the first nulls either side of the peak",
+          lambda t: fmt(t.metrics.fnbw_deg, "°")),
+    Field("fb", "F/B", "front_to_back_db", "front-to-back ratio (needs data behind the beam)",
+          lambda t: fmt(t.metrics.front_to_back_db, " dB")),
+    Field("sll", "SLL", "sll_db", "highest side lobe relative to the peak",
+          lambda t: fmt(t.metrics.sll_db, " dB")),
+    Field("slla", "at", "sll_angle_deg", "bearing of the highest side lobe",
+          lambda t: fmt(t.metrics.sll_angle_deg, "°", signed=True)),
+    Field("pwr", "peak", "peak_power_db", "power at the peak (dBm if calibrated, else dB)",
+          lambda t: fmt(t.metrics.peak_power_db, _unit_db(t))),
+    Field("exp", "model", "expected_hpbw_deg", "HPBW the array model expects",
+          lambda t: fmt(t.expected_hpbw_deg, "°")),
+    Field("rate", "rate", "rate_sps", "samples per second taken in",
+          lambda t: fmt_rate(t.rate_sps)),
+    Field("sweeps", "sweeps", "sweeps", "complete sweeps seen since the start or reset",
+          lambda t: fmt_count(t.sweeps)),
+    Field("lost", "lost", "lost", "messages missing from the sequence numbering",
+          lambda t: fmt_count(t.source.lost)),
+    Field("rej", "rej", "rejected", "messages rejected by the decoder (all reasons)",
+          lambda t: fmt_count(t.source.rejected_total)),
 )
 
 
@@ -90,12 +110,12 @@ class MetricGrid(Widget):
             self._lines.clear()
             self.refresh()
 
-    def _pair_width(self) -> int:
+    def pair_width(self) -> int:
         return max(LABEL_W + 2, (self.size.width - 1) // 2)
 
     def field_at(self, x: int, y: int) -> Field | None:
         """The field whose label or value is at (x, y) in the widget."""
-        pw = self._pair_width()
+        pw = self.pair_width()
         col = 0 if x < pw else (1 if x > pw else None)
         if col is None:
             return None
@@ -129,7 +149,7 @@ class MetricGrid(Widget):
                                                     default=Style())
         val = base + self.get_component_rich_style("metric-grid--value", partial=True,
                                                     default=Style())
-        pw = self._pair_width()
+        pw = self.pair_width()
         segs: list[Segment] = []
         for col in (0, 1):
             i = 2 * y + col
@@ -192,6 +212,9 @@ class Readout(Widget):
     Readout Static { height: 1; text-wrap: nowrap; text-overflow: ellipsis; }
     """
 
+    #: The readout shown (a Tick holds arrays, so every assignment counts as a change).
+    tick: reactive[Tick | None] = reactive(None, always_update=True, repaint=False)
+
     def __init__(self, *, name: str | None = None, id: str | None = None,
                  classes: str | None = None) -> None:
         super().__init__(name=name, id=id, classes=classes)
@@ -235,11 +258,10 @@ class Readout(Widget):
         """The texts currently shown, by widget id (tests)."""
         return dict(self._last)
 
-    def show(self, tick: Tick | None) -> None:
-        if tick is None:
+    def watch_tick(self, tick: Tick | None) -> None:
+        if tick is None or not self.is_mounted:
             return
         m = tick.metrics
-        unit = " dBm" if tick.calibrated else " dB"
         peak = m.peak_angle_deg
         # fixed width (sign, three digits, one decimal): a bearing that gains or loses a
         # digit must not make the whole screen lay out again
@@ -263,26 +285,11 @@ class Readout(Widget):
         else:
             self._set("rd-target", "no target")
             self._set("rd-offset", "")
-        reasons = m.reasons
-
         grid = self.query_one(MetricGrid)
-
-        def metric(fid: str, key: str, text: str) -> None:
-            self._last[f"rd-v-{fid}"] = text
-            grid.set_value(fid, text, reasons.get(key) if text == DASH else None)
-
-        metric("hpbw", "hpbw_deg", fmt(m.hpbw_deg, "°"))
-        metric("bw10", "bw10_deg", fmt(m.bw10_deg, "°"))
-        metric("fnbw", "fnbw_deg", fmt(m.fnbw_deg, "°"))
-        metric("fb", "front_to_back_db", fmt(m.front_to_back_db, " dB"))
-        metric("sll", "sll_db", fmt(m.sll_db, " dB"))
-        metric("slla", "sll_angle_deg", fmt(m.sll_angle_deg, "°", signed=True))
-        metric("pwr", "peak_power_db", fmt(m.peak_power_db, unit))
-        metric("exp", "expected_hpbw_deg", fmt(tick.expected_hpbw_deg, "°"))
-        metric("rate", "rate_sps", fmt_rate(tick.rate_sps))
-        metric("sweeps", "sweeps", fmt_count(tick.sweeps))
-        metric("lost", "lost", fmt_count(tick.source.lost))
-        metric("rej", "rejected", fmt_count(tick.source.rejected_total))
+        for f in grid.fields:
+            text = f.text(tick)
+            self._last[f"rd-v-{f.id}"] = text
+            grid.set_value(f.id, text, m.reasons.get(f.key) if text == DASH else None)
         self._set("rd-source", f"source {tick.source.state}"
                   + (f" · {fmt_count(tick.samples)} samples" if tick.samples else ""))
         src = self.query_one("#rd-source")

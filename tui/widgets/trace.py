@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from textual.reactive import reactive
 
 from stream.array_model import ArrayModel
 from stream.beam import HALF_POWER_DB
@@ -49,16 +50,17 @@ class TracePlot(CanvasWidget):
     TracePlot { height: 1fr; width: 1fr; }
     """
 
+    #: The readout drawn (a Tick holds arrays, so every assignment counts as a change).
+    tick: reactive[Tick | None] = reactive(None, always_update=True, repaint=False)
+
     def __init__(self, model: ArrayModel | None = None, *, name: str | None = None,
                  id: str | None = None, classes: str | None = None) -> None:
         super().__init__(name=name, id=id, classes=classes)
         self.model = model
-        self.tick: Tick | None = None
         self._model_cache: tuple[float, float, int, np.ndarray, np.ndarray] | None = None
 
-    def show(self, tick: Tick | None) -> None:
-        self.tick = tick
-        self.redraw()
+    def watch_tick(self) -> None:
+        self.invalidate()
 
     def _model_curve(self, lo: float, hi: float, n: int) -> tuple[np.ndarray, np.ndarray]:
         key = (lo, hi, n)

@@ -6,6 +6,7 @@ target band (target +/- tolerance) is stippled with its centre dashed.
 from __future__ import annotations
 
 import numpy as np
+from textual.reactive import reactive
 
 from stream.tick import Tick
 from tui.widgets.braille import BrailleCanvas, CanvasWidget
@@ -29,37 +30,30 @@ class TrendPlot(CanvasWidget):
     TrendPlot { height: 1fr; width: 1fr; }
     """
 
+    #: The readout drawn (a Tick holds arrays, so every assignment counts as a change).
+    tick: reactive[Tick | None] = reactive(None, always_update=True, repaint=False)
+
     def __init__(self, window_s: float = WINDOW_S, *, name: str | None = None,
                  id: str | None = None, classes: str | None = None) -> None:
         super().__init__(name=name, id=id, classes=classes)
         self.window_s = float(window_s)
         self.shown_window_s = float(window_s)
-        self.tick: Tick | None = None
-        self._last_key: tuple | None = None
 
-    def show(self, tick: Tick | None) -> None:
+    def watch_tick(self) -> None:
+        self.refresh()  # rasterised again only if picture_key() changed
+
+    def picture_key(self) -> object:
         """Redraw only when the picture can change: a new sweep, another target, or
         time moved by one dot column (the trend scrolls slowly; at 10 Hz most ticks
         would redraw the same dots)."""
-        self.tick = tick
-        key = self._picture_key(tick)
-        if key is not None and key == self._last_key:
-            return
-        self._last_key = key
-        self.redraw()
-
-    def _picture_key(self, tick: Tick | None) -> tuple | None:
+        tick = self.tick
         if tick is None:
-            return None
+            return (self._version, self.size)
         n = len(tick.sweep_peak_t)
         last_t = float(tick.sweep_peak_t[-1]) if n else None
         column_s = self.shown_window_s / max(1, 2 * (self.size.width - 5))
-        return (n, last_t, tick.target_deg, tick.tolerance_deg, self.size,
+        return (self._version, n, last_t, tick.target_deg, tick.tolerance_deg, self.size,
                 int(tick.t // column_s) if column_s > 0 else tick.t)
-
-    def on_resize(self) -> None:
-        self._last_key = None
-        super().on_resize()
 
     def draw(self, canvas: BrailleCanvas) -> None:
         tick = self.tick
