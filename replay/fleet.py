@@ -26,7 +26,7 @@ import contextlib
 import re
 import time
 from collections.abc import AsyncIterator, Callable, Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 from stream.alarms import SEVERITY_RANK, AlarmStatus
@@ -61,12 +61,16 @@ class TopicGuard:
     The topic of a batch is ``SampleBatch.stream`` (the message's topic frame, ``""``
     without one).  The first topic seen is kept; a batch list holding another raises
     :class:`MixedTopicsError`, so two arrays' samples are never merged into one beam.
+    With a ``name`` (a fleet station), the batches passed on carry that name in
+    ``SampleBatch.stream`` instead of the topic.
     """
 
-    def __init__(self, source: LiveSource, endpoint: str = "", where: str = "") -> None:
+    def __init__(self, source: LiveSource, endpoint: str = "", where: str = "",
+                 name: str | None = None) -> None:
         self.source = source
         self.endpoint = endpoint
         self.where = where
+        self.name = name
         self.topic: str | None = None
 
     async def batches(self) -> AsyncIterator[list[SampleBatch]]:
@@ -77,6 +81,9 @@ class TopicGuard:
                     topic = self.topic = b.stream
                 elif b.stream != topic:
                     raise MixedTopicsError(self.message(topic, b.stream))
+            name = self.name
+            if name is not None and topic != name:  # batches carry the stream's name
+                batches = [replace(b, stream=name) for b in batches]
             yield batches
 
     def message(self, first: str, other: str) -> str:
@@ -135,7 +142,7 @@ class Station:
         self.guard: TopicGuard | None = None
         self.driver: LiveDriver | None = None
         if source is not None:
-            self.guard = TopicGuard(source, endpoint, where=f"stream {name}")
+            self.guard = TopicGuard(source, endpoint, where=f"stream {name}", name=name)
             self.driver = LiveDriver(self.guard, monitor, interval_s=interval_s, clock=clock,
                                      close_source=close_source)
         monitor.tick_sinks.append(self._on_tick)

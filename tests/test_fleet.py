@@ -130,6 +130,17 @@ def test_one_failing_stream_does_not_stop_the_others():
     assert b.reading is not None and b.reading.tick.metrics.hpbw_deg == pytest.approx(26.3, abs=1.0)
 
 
+def test_station_batches_carry_the_stream_name():
+    seen: list[str] = []
+    mon = monitor()
+    mon.batch_sinks.append(lambda batch: seen.append(batch.stream))
+    st = Station("mast-3", mon, ScriptedSource(synth_lists(1.0, topic="sector-a")),
+                 interval_s=0.001, clock=StepClock())
+    asyncio.run(Fleet([st]).run(asyncio.Event()))
+    assert seen and set(seen) == {"mast-3"}
+    assert st.guard is not None and st.guard.topic == "sector-a"
+
+
 def test_fleet_refuses_duplicate_names_and_bad_names():
     with pytest.raises(UserError, match="twice"):
         Fleet([Station("a", monitor()), Station("a", monitor())])
