@@ -95,7 +95,8 @@ def add_alarm_arguments(parser: argparse.ArgumentParser) -> None:
                   "sets them for a site; a flag given here overrides the file.")
     g.add_argument("--config", metavar="FILE",
                    help="TOML file of alarm settings ([alarms], [alarms.RULE], [notify] "
-                        "tables; see examples/lobewatch.toml)")
+                        "tables; see examples/lobewatch.toml) and, for live, streams "
+                        "([streams.NAME] tables; docs/fleet.md)")
     g.add_argument("--target-deg", type=_number, metavar="DEG",
                    help="direction the main lobe should point, degrees; enables the drift "
                         "alarm [none]")
