@@ -162,11 +162,12 @@ def dwell_angle(block_t0: np.ndarray, block_t1: np.ndarray, ann_t: np.ndarray,
     no later than the next one (a block spanning a move is never attributed).
     """
     n = ann_t.shape[0]
-    i = np.searchsorted(ann_t, np.asarray(block_t0) - settle_s, side="right") - 1
+    eps = 1e-9  # times within a nanosecond are equal (sums of float steps round)
+    i = np.searchsorted(ann_t, np.asarray(block_t0) - settle_s + eps, side="right") - 1
     ok = i >= 0
     ic = np.clip(i, 0, max(n - 1, 0))
     nxt = np.where(ic + 1 < n, ann_t[np.minimum(ic + 1, n - 1)], np.inf)
-    ok &= block_t1 <= nxt
+    ok &= block_t1 <= nxt + eps
     if n == 0:
         return np.full(np.shape(block_t0), np.nan), np.zeros(np.shape(block_t0), dtype=bool)
     return np.where(ok, ann_angle_deg[ic], np.nan), ok

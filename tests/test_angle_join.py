@@ -132,3 +132,18 @@ def test_fixed_lag_join_counts_gaps() -> None:
 def test_dwell_needs_a_fixed_lag() -> None:
     with pytest.raises(ValueError, match="dwell"):
         JoinConfig(dwell=True, lag_s=None).validate()
+
+
+def test_dwell_join_attributes_settled_blocks_and_counts_the_rest() -> None:
+    # a steered array announcing a new position every 0.5 s; 10 ms blocks; settle 0.1 s:
+    # per position the blocks starting 0.1 s or more after the announcement and ending by
+    # the next one count (40 of 50), the first 10 are settling
+    j = AngleJoin(JoinConfig(lag_s=0.0, dwell=True, settle_s=0.1, hold_s=0.3), block_s=0.01)
+    ann_t = np.arange(0.0, 3.0, 0.5)
+    j.add_angles(ann_t, np.linspace(-25.0, 25.0, ann_t.size))
+    j.add_blocks(np.arange(0.005, 2.5, 0.01), np.zeros(250))
+    got = j.pop()
+    assert j.counts.dropped["settling"] == 50 and len(got) == 200
+    pos = np.floor(got.t / 0.5).astype(int)
+    np.testing.assert_array_equal(got.angle_deg, np.linspace(-25.0, 25.0, ann_t.size)[pos])
+    assert np.all(got.t - 0.005 - 0.5 * pos >= 0.1 - 1e-9)
