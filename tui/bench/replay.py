@@ -39,32 +39,35 @@ def _model_table() -> tuple[np.ndarray, np.ndarray]:
     return grid, ArrayModel(n_elements=4, spacing_wl=0.5).power_db(grid)
 
 
-def batches(n_samples: int, seed: int = 3) -> Iterator[SampleBatch]:
+def batches(n_samples: int, seed: int = 3, rate_sps: float = RATE_SPS,
+            per_batch: int = PER_BATCH) -> Iterator[SampleBatch]:
     """Invented data: a 4-element beam swept -60..60 deg 4 times a second, noise."""
     grid, table = _model_table()
     rng = np.random.default_rng(seed)
-    for k in range(n_samples // PER_BATCH):
-        t = T0 + (k * PER_BATCH + np.arange(PER_BATCH)) / RATE_SPS
+    for k in range(n_samples // per_batch):
+        t = T0 + (k * per_batch + np.arange(per_batch)) / rate_sps
         phase = ((t - T0) * 4.0) % 1.0
         angle = np.where(phase < 0.5, -60 + 240 * phase, 180 - 240 * phase)
-        power = -35.0 + np.interp(angle, grid, table) + rng.normal(0, 0.3, PER_BATCH)
+        power = -35.0 + np.interp(angle, grid, table) + rng.normal(0, 0.3, per_batch)
         yield SampleBatch(t, angle, np.maximum(power, -90.0), rx_t=float(t[-1]), seq=k)
 
 
-def generate(path: str, n_samples: int) -> None:
-    """Write an invented session of ``n_samples`` with a tick every TICK_S."""
+def generate(path: str, n_samples: int, rate_sps: float = RATE_SPS,
+             per_batch: int = PER_BATCH) -> None:
+    """Write an invented session of ``n_samples`` recorded at ``rate_sps`` in batches of
+    ``per_batch``, with a tick every TICK_S."""
     from replay.session import SessionWriter
     with SessionWriter(path, {"notes": "invented benchmark session"},
                        synchronous="OFF") as w:
         next_tick = T0 + TICK_S
-        for k, b in enumerate(batches(n_samples)):
+        for k, b in enumerate(batches(n_samples, rate_sps=rate_sps, per_batch=per_batch)):
             while next_tick < b.rx_t:
                 w.write_tick(next_tick, SourceStats("receiving", k))
                 next_tick += TICK_S
             w.write_batch(b)
             if w.pending_bytes > 64 * 1024 * 1024:
                 w.commit()
-        w.write_tick(next_tick, SourceStats("ended", n_samples // PER_BATCH))
+        w.write_tick(next_tick, SourceStats("ended", n_samples // per_batch))
 
 
 def raw_read(path: str) -> tuple[float, int]:
