@@ -66,7 +66,7 @@ async def bench_frames(frames: int, size: tuple[int, int],
         await pilot.pause()
         if gc_tuned:
             app.pace_gc()  # what the app does in a real terminal
-        polar, trace, trend = app.w_polar, app.w_trace, app.w_trend
+        polar, trace, trend = app.beam.w_polar, app.beam.w_trace, app.beam.w_trend
         screen = app.screen
         console = app.console
         for i in range(frames):
@@ -76,7 +76,7 @@ async def bench_frames(frames: int, size: tuple[int, int],
             t1 = clock()
             trace.show(tick)
             t2 = clock()
-            trend._last_key = None  # force: the trend skips frames that would not change it
+            trend.invalidate()  # force: the trend skips frames that would not change it
             trend.show(tick)
             t3 = clock()
             out["polar"].append(t1 - t0)
@@ -89,7 +89,7 @@ async def bench_frames(frames: int, size: tuple[int, int],
             mon.last_tick = tick
             w0 = time.perf_counter()
             t0 = clock()
-            trend._last_key = None  # worst case: every widget redraws every frame
+            trend.invalidate()  # worst case: every widget redraws every frame
             app.show_tick(tick)
             app.refresh_view()
             if screen._layout_required:  # as Textual's own update does
@@ -116,7 +116,7 @@ async def bench_frames(frames: int, size: tuple[int, int],
         out["refresh"] = []
         for i in range(frames):
             mon.last_tick = ticks[(i + 3) % len(ticks)]
-            trend._last_key = None
+            trend.invalidate()
             t0 = clock()
             app.refresh_view()
             await pilot.pause(0.02)
@@ -253,12 +253,12 @@ async def bench_live(seconds: float, size: tuple[int, int]) -> dict[str, float]:
             lat = []
             from textual import events
             for _ in range(10):
-                before = app.w_polar.scale
-                strips_before = app.w_polar._strips
+                before = app.beam.w_polar.scale
+                strips_before = app.beam.w_polar._strips
                 t0 = time.perf_counter()
                 # the key as the terminal driver would deliver it, then poll the screen
                 app.post_message(events.Key("d", "d"))
-                while app.w_polar.scale == before or app.w_polar._strips is strips_before:
+                while app.beam.w_polar.scale == before or app.beam.w_polar._strips is strips_before:
                     await asyncio.sleep(0.001)
                     if time.perf_counter() - t0 > 2.0:
                         break

@@ -41,14 +41,13 @@ async def _frames(frames: int, size: tuple[int, int], warmup: int) -> dict[str, 
         between = getattr(app, "collect_between_frames", None)
         screen = app.screen
         console = app.console
-        trend = getattr(app, "w_trend", None)
+        trend = app.beam.w_trend
         for i in range(frames + warmup):
             tick = ticks[(i + 7) % len(ticks)]
             mon.last_tick = tick
             w0 = time.perf_counter()
             t0 = time.thread_time()
-            if trend is not None and hasattr(trend, "_last_key"):
-                trend._last_key = None  # worst case: every widget redraws every frame
+            trend.invalidate()  # worst case: every widget redraws every frame
             app.show_tick(tick)
             app.refresh_view()
             if getattr(screen, "_layout_required", False):  # as Textual's own update does

@@ -38,21 +38,25 @@ class TrendPlot(CanvasWidget):
         super().__init__(name=name, id=id, classes=classes)
         self.window_s = float(window_s)
         self.shown_window_s = float(window_s)
+        self._tick_key_drawn: object = None
 
     def watch_tick(self) -> None:
-        self.refresh()  # rasterised again only if picture_key() changed
-
-    def picture_key(self) -> object:
-        """Redraw only when the picture can change: a new sweep, another target, or
-        time moved by one dot column (the trend scrolls slowly; at 10 Hz most ticks
+        """Invalidate only when the picture can change: a new sweep, another target,
+        or time moved by one dot column (the trend scrolls slowly; at 10 Hz most ticks
         would redraw the same dots)."""
+        key = self._tick_key()
+        if key != self._tick_key_drawn:
+            self._tick_key_drawn = key
+            self.invalidate()
+
+    def _tick_key(self) -> object:
         tick = self.tick
         if tick is None:
-            return (self._version, self.size)
+            return None
         n = len(tick.sweep_peak_t)
         last_t = float(tick.sweep_peak_t[-1]) if n else None
         column_s = self.shown_window_s / max(1, 2 * (self.size.width - 5))
-        return (self._version, n, last_t, tick.target_deg, tick.tolerance_deg, self.size,
+        return (n, last_t, tick.target_deg, tick.tolerance_deg,
                 int(tick.t // column_s) if column_s > 0 else tick.t)
 
     def draw(self, canvas: BrailleCanvas) -> None:
