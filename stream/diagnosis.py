@@ -44,6 +44,9 @@ from stream.fit import ABOVE_FLOOR_DB, FitError, ModelFit, _peak_raw_db, fit_mod
 DEAD_REL: float = 0.3
 #: ... below this fraction weak (-3 dB).
 WEAK_REL: float = 0.708
+#: Larger patterns are thinned to about this many points (means of neighbouring samples)
+#: before the hypothesis fits: a 0.1-deg pattern oversamples any beam many times.
+MAX_SAMPLES: int = 720
 #: Significance of the F test that admits a suspect (family-wise over the pairs tried).
 ALPHA: float = 1e-3
 #: Most suspects named by the forward selection.
@@ -123,7 +126,9 @@ class _Problem:
             amp[free] = x[4:]
             z = np.exp(1j * 2.0 * np.pi * self.d * (self.sin_t - math.sin(math.radians(x[0]))))
             zk = np.cumprod(np.column_stack([np.ones_like(z)] + [z] * (n - 1)), axis=1)
-            af = zk @ amp
+            # einsum, not @: a BLAS call this small costs more in thread hand-offs on a
+            # busy machine than the arithmetic.
+            af = np.einsum("ij,j->i", zk, amp)
             elem = element_power(self.a, x[2])
             g = 10.0 ** (x[1] / 10.0) / self.norm
             sig = g * elem * (af.real ** 2 + af.imag ** 2)
@@ -137,7 +142,7 @@ class _Problem:
             amp, zk, af, elem, g, sig, fl, lin = parts(x)
             s = _DB * g * elem / lin
             caf = np.conj(af)
-            dpsi = 2.0 * np.real(caf * (zk @ (1j * self.kk * amp)))
+            dpsi = 2.0 * np.real(caf * np.einsum("ij,j->i", zk, 1j * self.kk * amp))
             d_steer = s * dpsi * (-2.0 * np.pi * self.d * math.cos(math.radians(x[0]))
                                   * math.pi / 180.0)
             cols = [d_steer, sig / lin, _DB * sig / lin * self.log_cos, fl / lin]
@@ -182,6 +187,8 @@ def diagnose(angle_deg: np.ndarray, power_db: np.ndarray, model: ArrayModel,
     if int(np.sum(p > fit.floor_db + ABOVE_FLOOR_DB)) < n + 2:
         raise FitError(f"too few samples above the noise floor; {n + 2} are needed "
                        f"to test {n} columns")
+    if a.size > MAX_SAMPLES:
+        a, p = _thin(a, p, MAX_SAMPLES)
     prob = _Problem(a, p, model, fit)
     offset = fit.gain_db - _peak_raw_db(n, fit.spacing_wl, fit.steer_deg, fit.element_exp, w)
     base = np.array([fit.steer_deg, offset, fit.element_exp, fit.floor_db])
@@ -231,6 +238,16 @@ def diagnose(angle_deg: np.ndarray, power_db: np.ndarray, model: ArrayModel,
     return ColumnDiagnosis([float(v) for v in rel], n_eff, suspects, kinds,
                            [float(s) for s in sigma],
                            float(math.sqrt(2.0 * float(cur.cost) / m)))
+
+
+def _thin(a: np.ndarray, p: np.ndarray, target: int) -> tuple[np.ndarray, np.ndarray]:
+    """Means (angle, dB) of groups of k neighbouring samples in angle order."""
+    k = int(math.ceil(a.size / target))
+    order = np.argsort(a, kind="stable")
+    m = (a.size // k) * k
+    a2 = a[order][:m].reshape(-1, k).mean(axis=1)
+    p2 = p[order][:m].reshape(-1, k).mean(axis=1)
+    return a2, p2
 
 
 def _median_rel(amp: np.ndarray, w: np.ndarray, free: list[int]) -> float:
