@@ -19,6 +19,7 @@ from typing import Any, NamedTuple, Protocol, runtime_checkable
 from stream.batch import SampleBatch
 from stream.monitor import Monitor
 from stream.tick import Event, SourceStats
+from stream.waiting import HINT_AFTER_S, source_settings, waiting_hint
 
 
 class LiveSource(Protocol):
@@ -96,6 +97,9 @@ class LiveDriver:
         self.close_source = close_source
         self.state: str | None = None
         self.batches = 0
+        #: What was tried and the usual causes, once waiting has lasted HINT_AFTER_S.
+        self.waiting_hint: str | None = None
+        self._waiting_since: float | None = None
 
     def _ingest(self, batches: list[SampleBatch]) -> None:
         ingest = self.monitor.ingest
@@ -113,6 +117,20 @@ class LiveDriver:
             self.monitor.emit(Event(t, "status", {"state": name, "source_state": stats.state,
                                                   "previous": self.state}))
         self.state = stats.state
+        self._hint_if_waiting(t, stats)
+
+    def _hint_if_waiting(self, t: float, stats: SourceStats) -> None:
+        """After HINT_AFTER_S at waiting with no message: one status event with a hint
+        (stream/waiting.py); headless prints it, the screen shows ``waiting_hint``."""
+        if stats.state != "waiting" or stats.messages or self.waiting_hint is not None:
+            return
+        if self._waiting_since is None:
+            self._waiting_since = t
+        elif t - self._waiting_since >= HINT_AFTER_S:
+            ep, bind, topic = source_settings(self.source)
+            self.waiting_hint = waiting_hint(ep, bind, topic, t - self._waiting_since)
+            self.monitor.emit(Event(t, "status", {"state": "waiting", "source_state": "waiting",
+                                                  "hint": self.waiting_hint}))
 
     def tick_once(self) -> None:
         """One readout now (also used at the end of a run)."""

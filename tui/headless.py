@@ -130,7 +130,11 @@ class HeadlessPrinter:
         if self.first_t is None:
             self.first_t = tick.t
         self.last_tick = tick
-        self.write(tick.metrics_record())
+        rec = tick.metrics_record()
+        expected = getattr(tick, "expected_hpbw_deg", None)
+        if expected is not None:  # --elements N: the model's value, as the screen shows it
+            rec["expected_hpbw_deg"] = expected
+        self.write(rec)
 
     def on_event(self, event: Event) -> None:
         self.write(event_record(event))
