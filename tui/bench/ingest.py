@@ -83,7 +83,12 @@ def _triangle(n: int) -> np.ndarray:
 
 
 def _pool(kind: str, small: bool = False) -> list[list[bytes]]:
-    from stream.wire import encode_binary_batch, encode_json_batch, encode_json_single
+    from stream.wire import (
+        encode_binary_batch,
+        encode_json_batch,
+        encode_json_single,
+        encode_raw_f32,
+    )
     rng = np.random.default_rng(1)
     if kind == "json-single":
         n = 5_000 if small else 20_000
@@ -100,6 +105,8 @@ def _pool(kind: str, small: bool = False) -> list[list[bytes]]:
         t0 = 1767225600.0 + i * 0.1
         if kind == "json-batch":
             out.append(encode_json_batch(a, p, t0=t0, dt=1e-4, decimals=3))
+        elif kind == "raw-f32":
+            out.append(encode_raw_f32(a, p))
         else:
             out.append(encode_binary_batch(a, p, t0 + np.arange(BATCH) * 1e-4))
     return out
@@ -133,7 +140,7 @@ def publisher_main(endpoint: str, conn: Any, small: bool = False) -> None:
     s.setsockopt(zmq.SNDHWM, 0)  # bursts are queued whole (capacity runs)
     s.setsockopt(zmq.LINGER, 0)
     s.bind(endpoint)
-    pools = {k: _pool(k, small) for k in KINDS}
+    pools = {k: _pool(k, small) for k in (*KINDS, "raw-f32")}
     conn.send("ready")
     cmd: tuple = ("idle",)
     while True:
@@ -226,10 +233,10 @@ def tcp_endpoint() -> str:
 
 # -- consumers -------------------------------------------------------------------------------
 #: Messages per capacity burst, by kind (about 0.5-1 s of work for the pipeline here).
-BURST = {"json-single": 150_000, "json-batch": 600, "binary": 4_000}
+BURST = {"json-single": 150_000, "json-batch": 600, "binary": 4_000, "raw-f32": 4_000}
 #: The same for ``--quick``.
-BURST_QUICK = {"json-single": 40_000, "json-batch": 150, "binary": 1_000}
-PER_MSG = {"json-single": 1, "json-batch": BATCH, "binary": BATCH}
+BURST_QUICK = {"json-single": 40_000, "json-batch": 150, "binary": 1_000, "raw-f32": 1_000}
+PER_MSG = {"json-single": 1, "json-batch": BATCH, "binary": BATCH, "raw-f32": BATCH}
 #: Seconds for the subscription to reach the publisher, and for a burst to land.
 SUBSCRIBE_S = 0.3
 LAND_S = 0.2
@@ -294,12 +301,12 @@ def raw_capacity(pub: Publisher, endpoint: str, kind: str, decode: bool,
             "received": float(n_msg), "sent": float(n_total)}
 
 
-def _pipeline_parts(endpoint: str) -> tuple[Any, Any, Any]:
+def _pipeline_parts(endpoint: str, fmt: str = "auto") -> tuple[Any, Any, Any]:
     from stream.estimator import EstimatorConfig, RollingPattern
     from stream.live import LiveDriver
     from stream.monitor import Monitor
     from stream.zmq_source import ZmqSource
-    src = ZmqSource(endpoint, hwm=0, max_message_bytes=16 << 20)
+    src = ZmqSource(endpoint, hwm=0, max_message_bytes=16 << 20, fmt=fmt)
     monitor = Monitor(RollingPattern(EstimatorConfig()))
     return src, monitor, LiveDriver(src, monitor, interval_s=0.1)
 
@@ -307,7 +314,7 @@ def _pipeline_parts(endpoint: str) -> tuple[Any, Any, Any]:
 async def pipeline_capacity(pub: Publisher, endpoint: str, kind: str, n_total: int,
                             rss: RssSampler | None = None) -> dict[str, float]:
     """Drain a queued burst through the real source, driver and monitor."""
-    src, monitor, driver = _pipeline_parts(endpoint)
+    src, monitor, driver = _pipeline_parts(endpoint, "raw-f32" if kind == "raw-f32" else "auto")
     await asyncio.sleep(SUBSCRIBE_S)
     pub.command("burst", kind, n_total)
     await asyncio.sleep(LAND_S)
