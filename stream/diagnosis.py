@@ -9,7 +9,8 @@ Model (steering, element exponent, spacing, gain and noise floor from
 fitted by :func:`scipy.optimize.least_squares` (bounds ``0 <= a_k``, analytic Jacobian)
 from the healthy start ``a = w`` (the nominal taper) and from one start per mirror pair
 with that pair's column switched off; the lowest cost wins.  ``amplitudes`` are
-``a_k / w_k`` divided by their median (1.0 = as designed).
+``a_k / w_k`` divided by the largest (1.0 = as strong as designed; columns not
+named by the search stay at their nominal weight).
 
 What a power pattern can tell: with real amplitudes, ``|sum a_k z^k| = |sum a_(N+1-k)
 z^k|`` on the unit circle (the mirrored array has the complex-conjugate factor times a
@@ -40,7 +41,7 @@ from stream.array_model import ArrayModel, element_power, taper_weights
 from stream.batch import wrap_angle_deg
 from stream.fit import ABOVE_FLOOR_DB, FitError, ModelFit, _peak_raw_db, fit_model
 
-#: A column below this fraction of the median amplitude is reported dead (-10.5 dB).
+#: A column below this fraction of the largest amplitude is reported dead (-10.5 dB).
 DEAD_REL: float = 0.3
 #: ... below this fraction weak (-3 dB).
 WEAK_REL: float = 0.708
@@ -49,10 +50,10 @@ WEAK_REL: float = 0.708
 MAX_SAMPLES: int = 720
 #: Significance of the F test that admits a suspect (family-wise over the pairs tried).
 ALPHA: float = 1e-3
-#: Most suspects named by the forward selection.
-MAX_SUSPECTS: int = 2
+#: Most columns the forward selection frees (one per step).
+MAX_STEPS: int = 3
 #: Highest amplitude searched, relative to the nominal weight.
-AMPLITUDE_MAX: float = 4.0
+AMPLITUDE_MAX: float = 30.0
 
 _DB = 10.0 / math.log(10.0)
 
@@ -167,7 +168,8 @@ def diagnose(angle_deg: np.ndarray, power_db: np.ndarray, model: ArrayModel,
     gain, element exponent and floor refitted too).  The best pair is kept when it
     lowers the residual sum of squares significantly (F test at ``ALPHA`` for one
     extra parameter, Bonferroni over the pairs tried) and its amplitude is below
-    ``WEAK_REL``; the search then tries one more pair, up to ``MAX_SUSPECTS``.
+    ``WEAK_REL``; the search then tries one more column (the mirror of a chosen one
+    included), up to ``MAX_STEPS``.
 
     Why not fit every amplitude freely: an array with an interior column off has
     other non-negative amplitude sets with exactly the same power pattern (flipping
@@ -199,11 +201,13 @@ def diagnose(angle_deg: np.ndarray, power_db: np.ndarray, model: ArrayModel,
     cur = h0
     pairs = mirror_pairs(n)
     m = a.size
-    for _ in range(min(MAX_SUSPECTS, len(pairs))):
-        tried = [pr for pr in pairs if pr[0] - 1 not in cur_free]
+    for _ in range(min(MAX_STEPS, n - 1)):
+        # one candidate per pair: its first column, or its mirror once the first is free
+        tried = [c - 1 for pr in pairs
+                 for c in [next((c for c in pr if c - 1 not in cur_free), None)]
+                 if c is not None]
         best = None
-        for pr in tried:
-            k = pr[0] - 1
+        for k in tried:
             steers = [float(cur.x[0])]
             if abs(peak_dir - steers[0]) > hpbw_deg / 8.0:
                 steers.append(peak_dir)
@@ -218,18 +222,23 @@ def diagnose(angle_deg: np.ndarray, power_db: np.ndarray, model: ArrayModel,
         dof = max(m - r.x.size, 1)
         f_stat = (cur.cost - r.cost) / max(r.cost / dof, 1e-300)
         crit = float(f_dist.ppf(1.0 - ALPHA / len(tried), 1, dof))
-        if f_stat <= crit or r.x[-1] / w[k] >= WEAK_REL * _median_rel(r.x[4:], w, cur_free + [k]):
+        ratio = r.x[-1] / w[k]
+        # a column found stronger than the rest means the rest are weak (the gain is free)
+        if f_stat <= crit or WEAK_REL <= ratio <= 1.0 / WEAK_REL:
             break
         cur_free.append(k)
         cur = r
     rel = np.ones(n)
     rel[cur_free] = cur.x[4:] / w[cur_free]
+    scale = float(np.max(rel))
+    rel = rel / scale
     sigma = np.zeros(n)
     if cur_free:
         dof = max(m - cur.x.size, 1)
         try:
             cov = np.linalg.inv(cur.jac.T @ cur.jac) * (2.0 * float(cur.cost) / dof)
-            sigma[cur_free] = np.sqrt(np.clip(np.diag(cov)[4:], 0.0, None)) / w[cur_free]
+            sigma[cur_free] = np.sqrt(np.clip(np.diag(cov)[4:], 0.0, None)) / w[cur_free] \
+                / scale
         except np.linalg.LinAlgError:
             sigma[cur_free] = np.nan
     suspects, kinds = _suspects(rel)
@@ -248,14 +257,6 @@ def _thin(a: np.ndarray, p: np.ndarray, target: int) -> tuple[np.ndarray, np.nda
     a2 = a[order][:m].reshape(-1, k).mean(axis=1)
     p2 = p[order][:m].reshape(-1, k).mean(axis=1)
     return a2, p2
-
-
-def _median_rel(amp: np.ndarray, w: np.ndarray, free: list[int]) -> float:
-    """Median relative amplitude when the ``free`` columns take ``amp``: 1 unless more
-    than half the columns are free."""
-    rel = np.ones(w.size)
-    rel[free] = amp / w[free]
-    return float(np.median(rel))
 
 
 def _suspects(rel: np.ndarray) -> tuple[list[list[int]], list[str]]:
