@@ -54,6 +54,7 @@ from __future__ import annotations
 import numpy as np
 
 from stream.beam import HALF_POWER_DB, METRIC_KEYS, BeamMetrics
+from stream.uncertainty import with_uncertainty
 
 #: Level of the -10 dB beamwidth, dB.
 BW10_DB: float = -10.0
@@ -83,7 +84,8 @@ _RISE_COARSE_DB: float = 2.0
 _NOISE_DB: float = 0.02
 
 
-def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
+def measure(angle_deg: np.ndarray, power_db: np.ndarray, *,
+            uncertainty: bool = True) -> BeamMetrics:
     """Measure peak, beamwidths, side lobe level and front-to-back of one pattern.
 
     Raises ``ValueError`` only when the two arrays differ in shape; any pattern the
@@ -92,6 +94,8 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
     peak [2], level crossings by linear interpolation in dB), then, when the quartic
     residual above half power exceeds ``_NOISE_DB``, :func:`_noisy_pass` (least-squares
     quartic peak, Savitzky-Golay smoothed walk [3], least-squares side lobe top).
+    ``uncertainty=False`` leaves out the one-sigma uncertainties (the estimator's
+    per-sweep records need only peak and width: half the time of a readout's measure).
 
     Returns:
         BeamMetrics: angles (``peak_angle_deg``, ``hpbw_left_deg``/``_right_deg``,
@@ -115,7 +119,11 @@ def measure(angle_deg: np.ndarray, power_db: np.ndarray) -> BeamMetrics:
     fit = _clean_pass(frame)
     if fit.right.hp is not None and fit.left.hp is not None:
         _noisy_pass(frame, fit)
-    return _report(frame, fit)
+    metrics = _report(frame, fit)
+    if not uncertainty:
+        return metrics
+    # one-sigma uncertainty of peak, HPBW and SLL (and step caveats): stream.uncertainty
+    return with_uncertainty(metrics, frame.x_pk + frame.r, frame.pr)
 
 
 class _Frame:
