@@ -29,6 +29,8 @@ SESSION_RATE_SPS: float = 1000.0
 SESSION_SPAN_DEG: float = 60.0
 SESSION_SWEEP_S: float = 6.0
 BATCH_SAMPLES: int = 100
+#: An invented alarm event is recorded this often, seconds of session time.
+EVENT_EVERY_S: float = 60.0
 
 
 def make_session(path: str | os.PathLike[str], duration_s: float = 3600.0,
@@ -58,6 +60,7 @@ def make_session(path: str | os.PathLike[str], duration_s: float = 3600.0,
             "array": f"invented {n_elements}-column panel", "model": model.to_dict()}
     with SessionWriter(path, meta, force=True, synchronous="OFF") as w:
         next_tick = t0 + 1.0
+        every = max(BATCH_SAMPLES, int(EVENT_EVERY_S * rate_sps) // BATCH_SAMPLES * BATCH_SAMPLES)
         for i0 in range(0, n_total, BATCH_SAMPLES):
             i = np.arange(i0, min(i0 + BATCH_SAMPLES, n_total))
             t = t0 + i / rate_sps
@@ -71,7 +74,7 @@ def make_session(path: str | os.PathLike[str], duration_s: float = 3600.0,
             if rx >= next_tick:
                 w.write_tick(rx, SourceStats(state="receiving", messages=i0 // BATCH_SAMPLES))
                 next_tick += 1.0
-            if i0 % 600_000 == 0 and i0:
+            if i0 and i0 % every == 0:
                 w.write_event(Event(rx, "alarm", {"rule": "invented_drift",
                                                   "severity": "warning",
                                                   "text": "invented test alarm"}))
