@@ -200,7 +200,8 @@ def _round(v: float | None) -> float | None:
 
 
 def json_record(entry: ReportEntry) -> dict[str, Any]:
-    """The ``--json`` object for one file: source, samples, angle span, the metric keys
+    """The ``--json`` object for one file: source, samples, angle span, the metric keys,
+    ``uncertainty`` (1 sigma), ``notes`` (``{key: reason}`` for each null and caveat)
     and, with a model, ``model`` = {parameters, expected}."""
     rec: dict[str, Any] = {
         "source": entry.source,
@@ -210,6 +211,9 @@ def json_record(entry: ReportEntry) -> dict[str, Any]:
     }
     for k, v in entry.metrics.to_dict().items():
         rec[k] = _round(v)
+    # 1-sigma uncertainty, and the reason beside every null (and step caveats)
+    rec["uncertainty"] = {k: _round(v) for k, v in entry.metrics.uncertainty.items()}
+    rec["notes"] = entry.metrics.notes()
     if entry.model is not None:
         exp = entry.expected.to_dict() if entry.expected is not None \
             else dict.fromkeys(METRIC_KEYS)

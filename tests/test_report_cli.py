@@ -23,7 +23,8 @@ from tui.cli import main
 ROOT = Path(__file__).resolve().parents[1]
 EX = ROOT / "examples"
 EX1, EX2, EX4 = (str(EX / f"sweep_{n}col_5deg.csv") for n in (1, 2, 4))
-BASE_KEYS = {"source", "samples", "angle_min_deg", "angle_max_deg"}
+BASE_KEYS = {"source", "samples", "angle_min_deg", "angle_max_deg",
+             "uncertainty", "notes"}  # 1-sigma figures, and the reason beside each null
 
 
 def model_csv(tmp_path: Path, name: str = "model.csv", span: float = 90.0,
@@ -76,6 +77,7 @@ def test_json_has_exactly_the_specified_keys(capsys: pytest.CaptureFixture[str])
         assert rec["source"] == src and rec["samples"] == 37
         assert (rec["angle_min_deg"], rec["angle_max_deg"]) == (-90.0, 90.0)
         assert rec["front_to_back_db"] is None
+        assert rec["notes"]["front_to_back_db"]  # never a bare null
 
 
 def test_model_comparison_json_and_table(tmp_path: Path,
