@@ -1,10 +1,11 @@
 """Read one pattern for commissioning: a sweep file, a session, or an earlier record.
 
 * CSV / JSON Lines: every sample as measured (a hand sweep is its own pattern).
-* Session (``.lwsession``): every recorded batch is folded into the rolling pattern
+* Session (``.lwsession``): every recorded sample is folded into the rolling pattern
   (:class:`stream.estimator.RollingPattern`, averaging over the last ``sweeps_k``
-  complete sweeps), which also gives the peak direction of every sweep (the
-  timeline); the recorded events and the session's metadata come along.
+  complete sweeps, in runs of ``CHUNK_SAMPLES``), which also gives the peak
+  direction of every sweep (the timeline); the recorded events and the session's
+  metadata come along.
 * Record (``record.json`` written by ``lobewatch commission --out``): the pattern it
   stored, for ``--reference``.
 
@@ -24,12 +25,17 @@ from typing import Any
 import numpy as np
 
 from replay.readers import SESSION_EXTENSIONS, read_sweep
+from stream.batch import SampleBatch
 from stream.errors import InputFileError
 from stream.estimator import EstimatorConfig, RollingPattern
 from stream.tick import Event
 
 #: Sweeps history kept while reading a session (one entry per sweep for the timeline).
 SESSION_HISTORY: int = 1_000_000
+#: A session's batches are folded in runs of about this many samples (one estimator call
+#: per run; a sweep's end time is then known to within one run, about a second at
+#: a few thousand samples per second).
+CHUNK_SAMPLES: int = 4096
 #: A bin of a session pattern is kept however old it is (the session is read whole).
 _NEVER_STALE_S: float = 1e12
 
@@ -92,20 +98,22 @@ def _read_session(p: Path, digest: str, bin_deg: float, sweeps_k: int,
         done = 0
         calibrated = True
         last_t = 0.0
-        run: list = []
+        run: list[SampleBatch] = []
+        size = 0
         for b in reader.iter_batches():
             run.append(b)
+            size += len(b)
             calibrated = calibrated and b.calibrated
             last_t = b.rx_t
-            if len(run) >= 256:
-                est.update_many(run, [x.rx_t for x in run])
-                done += sum(len(x) for x in run)
-                run = []
+            if size >= CHUNK_SAMPLES:
+                est.update(_merge(run), run[-1].rx_t)
+                done += size
+                run, size = [], 0
                 if progress is not None:
                     progress(done, total)
         if run:
-            est.update_many(run, [x.rx_t for x in run])
-            done += sum(len(x) for x in run)
+            est.update(_merge(run), run[-1].rx_t)
+            done += size
         if progress is not None:
             progress(done, total)
         events = reader.events()
@@ -118,6 +126,16 @@ def _read_session(p: Path, digest: str, bin_deg: float, sweeps_k: int,
                      for s in sweeps], dtype=np.float64)
     return PatternInput(str(p), digest, "session", snap.angle_deg, snap.power_db, done,
                         calibrated, tl_t, tl_p, list(events), meta)
+
+
+def _merge(run: list[SampleBatch]) -> SampleBatch:
+    """Consecutive batches as one (stamped with the last receive time)."""
+    if len(run) == 1:
+        return run[0]
+    return SampleBatch(np.concatenate([b.t for b in run]),
+                       np.concatenate([b.angle_deg for b in run]),
+                       np.concatenate([b.power_db for b in run]), rx_t=run[-1].rx_t,
+                       calibrated=all(b.calibrated for b in run))
 
 
 def _read_record(p: Path, digest: str) -> PatternInput:
