@@ -4,8 +4,10 @@ The recorder hangs on the monitor's sinks (batches, ticks with the source counte
 events) and hands rows to a writer thread, so the event loop never waits for the
 disk: SQLite releases the GIL while it writes, which lets recording run on the
 second core.  The writer commits whenever the recorded time has moved on by
-``commit_interval_s`` since the last commit (and, as a fallback, after the same span
-of wall time), so a killed process loses at most about a second of data.
+``commit_interval_s`` (0.2 s) since the last commit, as a fallback after the same span
+of wall time, and whenever ``max_pending_bytes`` (4 MB) are waiting, whichever comes
+first -- so a process killed in the very first second of a recording still leaves a
+session with what it took in, and a kill loses at most about half a second.
 """
 
 from __future__ import annotations
@@ -34,9 +36,9 @@ class Recorder:
     """
 
     def __init__(self, path: str | os.PathLike[str], metadata: dict[str, Any] | None = None,
-                 force: bool = False, commit_interval_s: float = 0.5, *,
+                 force: bool = False, commit_interval_s: float = 0.2, *,
                  threaded: bool = True, max_queue: int = 2048,
-                 max_pending_bytes: int = 64 * 1024 * 1024) -> None:
+                 max_pending_bytes: int = 4 * 1024 * 1024) -> None:
         self.path = os.fspath(path)
         self.commit_interval_s = float(commit_interval_s)
         self.max_pending_bytes = int(max_pending_bytes)
@@ -135,7 +137,8 @@ class Recorder:
                 self._last_item_t = t
             if self.last_commit_t is None:
                 self.last_commit_t = t
-            if (t - self.last_commit_t >= self.commit_interval_s
+            if ((self.commits == 0 and kind == "b")  # the first samples at once
+                    or t - self.last_commit_t >= self.commit_interval_s
                     or w.pending_bytes >= self.max_pending_bytes):
                 self._commit()
         except UserError as exc:

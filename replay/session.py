@@ -55,10 +55,11 @@ _SQLITE_MAGIC = b"SQLite format 3\x00"
 _SCHEMA = """
 CREATE TABLE meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE blocks (
-    id INTEGER PRIMARY KEY, id_last INTEGER NOT NULL, rx_t REAL NOT NULL,
-    rx_t_last REAL NOT NULL, t_first REAL, t_last REAL, n INTEGER NOT NULL, epoch TEXT,
-    stream TEXT NOT NULL DEFAULT '', calibrated INTEGER NOT NULL, enc TEXT NOT NULL,
-    counts BLOB NOT NULL, rx BLOB NOT NULL, seq BLOB, t BLOB NOT NULL,
+    id INTEGER PRIMARY KEY, id_last INTEGER NOT NULL, nb INTEGER NOT NULL,
+    rx_t REAL NOT NULL, rx_t_last REAL NOT NULL, t_first REAL, t_last REAL,
+    n INTEGER NOT NULL, epoch TEXT, stream TEXT NOT NULL DEFAULT '',
+    calibrated INTEGER NOT NULL, enc TEXT NOT NULL, counts BLOB NOT NULL, rx BLOB NOT NULL,
+    seq BLOB, ids BLOB, t BLOB NOT NULL,
     angle_deg BLOB NOT NULL, power_db BLOB NOT NULL, crc INTEGER NOT NULL);
 CREATE INDEX blocks_rx_t ON blocks (rx_t);
 CREATE TABLE ticks (id INTEGER PRIMARY KEY, t REAL NOT NULL, source TEXT NOT NULL,
@@ -83,7 +84,7 @@ CREATE INDEX batches_rx_t ON batches (rx_t);
 
 _BATCH_COLS = ("id, rx_t, t_first, t_last, n, seq, epoch, stream, calibrated, t, angle_deg, "
                "power_db, crc")
-_BLOCK_COLS = ("id, id_last, rx_t, n, epoch, stream, calibrated, enc, counts, rx, seq, t, "
+_BLOCK_COLS = ("id, nb, rx_t, n, epoch, stream, calibrated, enc, counts, rx, seq, ids, t, "
                "angle_deg, power_db, crc")
 
 _TABLES = ("meta", "blocks", "ticks", "events", "refs")
@@ -266,6 +267,7 @@ class SessionWriter:
         self._batches: list[tuple] = []  # block rows ready to insert
         self._blk: list[SampleBatch] = []  # batches of the block being filled
         self._blk_id = 0
+        self._blk_ids: list[int] = []
         self._blk_samples = 0
         self._ticks: list[tuple] = []
         self._events: list[tuple] = []
@@ -347,9 +349,10 @@ class SessionWriter:
         return i
 
     def write_batch(self, batch: SampleBatch) -> int:
-        """Queue one batch; returns its row id.  Consecutive batches of one stream are
-        stored together as one block row (closed by a tick, an event, a commit, a
-        change of stream, epoch or calibration, or its size)."""
+        """Queue one batch; returns its row id.  Batches of one stream are stored
+        together as one block row, with their ids (ticks and events between them keep
+        theirs), closed by a commit, a change of stream, epoch or calibration, or its
+        size."""
         n = len(batch)
         blk = self._blk
         if blk and (blk[0].stream != batch.stream or blk[0].epoch != batch.epoch
@@ -362,6 +365,7 @@ class SessionWriter:
         if not self._blk:
             self._blk_id = i
         self._blk.append(batch)
+        self._blk_ids.append(i)
         self._blk_samples += n
         self.pending_bytes += 24 * n + 16
         self.samples_written += n
@@ -384,20 +388,26 @@ class SessionWriter:
         rx0, rx1 = float(first.rx_t), float(blk[-1].rx_t)
         stream = first.stream or ""
         cal = bool(first.calibrated)
-        crc = block_crc(rx0, n, len(blk), cal, first.epoch, stream, enc, cb, rb, sb, tb, ab, pb)
-        self._batches.append((self._blk_id, self._blk_id + len(blk) - 1, rx0, rx1, t_first,
-                              t_last, n, first.epoch, stream, 1 if cal else 0, enc, cb, rb,
-                              sb, tb, ab, pb, crc))
+        last_id = self._blk_ids[-1]
+        ib = None  # ids are consecutive: no blob
+        if last_id - self._blk_id + 1 != len(blk):
+            ib = np.asarray(self._blk_ids, dtype=np.int64) - self._blk_id
+            ib = ib.astype("<i4").tobytes()
+        crc = block_crc(rx0, n, len(blk), cal, first.epoch, stream, enc, cb, rb, sb, ib, tb,
+                        ab, pb)
+        self._batches.append((self._blk_id, last_id, len(blk), rx0, rx1, t_first, t_last, n,
+                              first.epoch, stream, 1 if cal else 0, enc, cb, rb, sb, ib, tb,
+                              ab, pb, crc))
         self.pending_bytes += len(tb) + len(ab) + len(pb) + len(cb) + len(rb) + 64 - (
             24 * n + 16 * len(blk))
         self._blk = []
+        self._blk_ids = []
         self._blk_samples = 0
 
     def write_tick(self, t: float, source: SourceStats | dict[str, Any] | None) -> int:
         """Queue one tick time with the source counters at that tick."""
         d = source.to_dict() if isinstance(source, SourceStats) else dict(source or {})
         text = dumps(d)
-        self._close_block()
         i = self._take_id()
         self._ticks.append((i, float(t), text, text_crc(t, text)))
         self.pending_bytes += len(text) + 32
@@ -406,7 +416,6 @@ class SessionWriter:
     def write_event(self, event: Event, reference: Reference | None = None) -> int:
         """Queue one event; a ``reference`` event may carry the captured trace."""
         text = dumps(event.data)
-        self._close_block()
         i = self._take_id()
         self._events.append((i, float(event.t), event.kind, text,
                              text_crc(event.t, event.kind, text)))
@@ -443,7 +452,7 @@ class SessionWriter:
         try:
             con.execute("BEGIN")
             if self._batches:
-                con.executemany("INSERT INTO blocks VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
+                con.executemany("INSERT INTO blocks VALUES (" + ",".join("?" * 20) + ")",
                                 self._batches)
             if self._ticks:
                 con.executemany("INSERT INTO ticks VALUES (?,?,?,?)", self._ticks)
@@ -463,7 +472,7 @@ class SessionWriter:
                 pass
             raise UserError(f"{self.path}: writing the session failed ({exc}); check free "
                             "disk space") from None
-        self.rows_written += (sum(r[1] - r[0] + 1 for r in self._batches) + len(self._ticks)
+        self.rows_written += (sum(r[2] for r in self._batches) + len(self._ticks)
                               + len(self._events))
         self._batches.clear()
         self._ticks.clear()
@@ -503,11 +512,12 @@ def _damaged(path: str, what: str) -> InputFileError:
 class SessionReader:
     """Read-only access to a session file; never writes to it.
 
-    Opened with SQLite's read-only URI.  A cleanly closed session (no ``-wal`` file
-    beside it) is opened ``immutable`` so not even SQLite's side files are created; a
+    Opened with SQLite's read-only URI, and never creates a file beside the session.
+    A cleanly closed session (no ``-wal`` file beside it) is opened ``immutable``.  A
     session still being recorded, or one whose recorder was killed, has a ``-wal`` file
-    holding its newest rows, which SQLite reads in place (it may create a ``-shm`` index
-    beside it; the session file itself is never modified).
+    holding its newest rows: with its ``-shm`` index present SQLite reads both in place;
+    without it (the files were copied, say) the session and its ``-wal`` are read from a
+    private temporary copy, removed on :meth:`close`.
 
     ``rows_read`` counts every row fetched from the data tables (tests use it to show
     that a seek does not read the whole file).
@@ -517,22 +527,52 @@ class SessionReader:
         self.path = os.fspath(path)
         self.rows_read = 0
         self._check_header()
+        self._snapshot_dir: str | None = None
+        target = self.path
         wal = self.path + "-wal"
         immutable = not os.path.exists(wal)
-        uri = Path(os.path.abspath(self.path)).as_uri() + "?mode=ro"
+        if not immutable and not os.path.exists(self.path + "-shm"):
+            # The unsaved tail sits in the -wal file, and reading it would make SQLite
+            # create a -shm index beside the session: read a private copy instead.
+            target = self._private_copy()
+        uri = Path(os.path.abspath(target)).as_uri() + "?mode=ro"
         if immutable:
             uri += "&immutable=1"
         try:
             self._con = sqlite3.connect(uri, uri=True, isolation_level=None,
                                         check_same_thread=False)
         except sqlite3.Error as exc:
+            self._drop_copy()
             raise InputFileError(self.path, f"cannot open the session ({exc}); check the file "
                                  "and its directory are readable") from None
         try:
             self._validate()
         except BaseException:
             self._con.close()
+            self._drop_copy()
             raise
+
+    def _private_copy(self) -> str:
+        """Copy the session and its -wal file into a new private temporary folder."""
+        import shutil
+        d = tempfile.mkdtemp(prefix="lobewatch-read-")
+        dst = os.path.join(d, "session" + SUFFIX)
+        try:
+            shutil.copyfile(self.path, dst)
+            shutil.copyfile(self.path + "-wal", dst + "-wal")
+        except OSError as exc:
+            shutil.rmtree(d, ignore_errors=True)
+            raise InputFileError(self.path, f"cannot read the unsaved tail in {self.path}-wal "
+                                 f"({exc.strerror}); check free space in the temporary "
+                                 "folder") from None
+        self._snapshot_dir = d
+        return dst
+
+    def _drop_copy(self) -> None:
+        d, self._snapshot_dir = self._snapshot_dir, None
+        if d is not None:
+            import shutil
+            shutil.rmtree(d, ignore_errors=True)
 
     # -- validation --------------------------------------------------------------------
     def _check_header(self) -> None:
@@ -633,7 +673,7 @@ class SessionReader:
         """Row counts per data table (and total samples)."""
         return {
             "batches": int(self._one("SELECT count(*) FROM batches" if self._v1 else
-                                     "SELECT total(id_last - id + 1) FROM blocks") or 0),
+                                     "SELECT total(nb) FROM blocks") or 0),
             "samples": int(self._one(f"SELECT total(n) FROM {self._btable}") or 0),
             "ticks": int(self._one("SELECT count(*) FROM ticks") or 0),
             "events": int(self._one("SELECT count(*) FROM events") or 0),
@@ -697,12 +737,14 @@ class SessionReader:
                 row = self._one("SELECT id FROM batches WHERE rx_t < ? ORDER BY rx_t DESC "
                                 "LIMIT 1", (t_from,))
             else:
-                rows = self._query("SELECT id, rx FROM blocks WHERE rx_t < ? ORDER BY rx_t DESC "
-                                   "LIMIT 1", (t_from,))
+                rows = self._query("SELECT id, rx, ids FROM blocks WHERE rx_t < ? ORDER BY "
+                                   "rx_t DESC LIMIT 1", (t_from,))
                 if rows:
                     rx = np.frombuffer(rows[0][1], dtype="<f8")
-                    j = int(np.searchsorted(rx, t_from, side="left")) - 1
-                    row = int(rows[0][0]) + max(j, 0)
+                    j = max(int(np.searchsorted(rx, t_from, side="left")) - 1, 0)
+                    off = j if rows[0][2] is None else int(
+                        np.frombuffer(rows[0][2], dtype="<i4")[j])
+                    row = int(rows[0][0]) + off
         return int(row) if row is not None else 0
 
     # -- decoding rows -------------------------------------------------------------------
@@ -720,17 +762,24 @@ class SessionReader:
         return SampleBatch(t, a, p, rx_t=float(rx_t), seq=seq, epoch=epoch,
                            stream=stream or "", calibrated=bool(cal))
 
-    def _block(self, row: tuple) -> list[SampleBatch]:
-        """The batches of one version 2 block row (checked, decoded, split)."""
-        (i, i_last, rx_t, n, epoch, stream, cal, enc, cb, rb, sb, tb, ab, pb, crc) = row
-        blobs = (cb, rb, sb, tb, ab, pb)
+    def _block(self, row: tuple) -> tuple[list[int], list[SampleBatch]]:
+        """The row ids and batches of one version 2 block row (checked, decoded, split)."""
+        (i, k, rx_t, n, epoch, stream, cal, enc, cb, rb, sb, ib, tb, ab, pb, crc) = row
+        blobs = (cb, rb, sb, ib, tb, ab, pb)
         if (not all(isinstance(b, bytes) for b in blobs if b is not None) or cb is None
                 or not isinstance(enc, str)):
             raise _damaged(self.path, f"block {i} has the wrong type")
-        k = int(i_last) - int(i) + 1
+        k = int(k)
         if block_crc(float(rx_t), int(n), k, bool(cal), epoch, stream or "", enc,
                      *blobs) != crc:
             raise _damaged(self.path, f"block {i} fails its checksum")
+        if ib is None:
+            ids = list(range(int(i), int(i) + k))
+        else:
+            offs = np.frombuffer(ib, dtype="<i4") if len(ib) % 4 == 0 else np.empty(0)
+            if offs.size != k:
+                raise _damaged(self.path, f"block {i} has {offs.size} ids for {k} batches")
+            ids = (offs.astype(np.int64) + int(i)).tolist()
         try:
             t, a, p, counts, rx, seqs = decode_block(enc, int(n), cb, rb, sb, tb, ab, pb)
         except CodecError as exc:
@@ -740,9 +789,9 @@ class SessionReader:
         stream = stream or ""
         cal = bool(cal)
         if k == 1:
-            return [SampleBatch(t, a, p, rx_t=float(rx[0]),
-                                seq=None if seqs is None else int(seqs[0]), epoch=epoch,
-                                stream=stream, calibrated=cal)]
+            return ids, [SampleBatch(t, a, p, rx_t=float(rx[0]),
+                                     seq=None if seqs is None else int(seqs[0]), epoch=epoch,
+                                     stream=stream, calibrated=cal)]
         ends = np.cumsum(counts).tolist()
         rxl = rx.tolist()
         sql = [None] * k if seqs is None else seqs.tolist()
@@ -753,7 +802,7 @@ class SessionReader:
             out.append(SampleBatch(t[lo:hi], a[lo:hi], p[lo:hi], rx_t=rxl[j], seq=sql[j],
                                    epoch=epoch, stream=stream, calibrated=cal))
             lo = hi
-        return out
+        return ids, out
 
     def _tick(self, row: tuple) -> SourceStats:
         i, t, text, crc = row
@@ -813,10 +862,10 @@ class SessionReader:
             return
         for r in self._rows(f"SELECT {_BLOCK_COLS} FROM blocks WHERE id_last > ? ORDER BY id",
                             (after_id,)):
-            i0 = r[0]
-            for j, b in enumerate(self._block(r)):
-                if i0 + j > after_id:
-                    yield SessionItem("batch", i0 + j, b.rx_t, b)
+            ids, batches = self._block(r)
+            for i, b in zip(ids, batches, strict=True):
+                if i > after_id:
+                    yield SessionItem("batch", i, b.rx_t, b)
 
     def iter_batches(self) -> Iterator[SampleBatch]:
         for item in self._batch_items(0):
@@ -880,6 +929,7 @@ class SessionReader:
 
     def close(self) -> None:
         self._con.close()
+        self._drop_copy()
 
     def __enter__(self) -> SessionReader:
         return self

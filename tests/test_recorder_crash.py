@@ -30,7 +30,7 @@ from tui.cli import main
 ROOT = Path(__file__).resolve().parent.parent
 CLI = [sys.executable, "-m", "tui.cli"]
 KILLS = 10  # recordings killed in this suite (issue asks for at least 10)
-MAX_LOSS_S = 1.0  # a kill may lose at most the last second
+MAX_LOSS_S = 1.0  # bound checked here, loaded machine included (commits every 0.2 s)
 
 
 def _env() -> dict[str, str]:
@@ -44,7 +44,7 @@ def publisher(tmp_path_factory):
     d = tmp_path_factory.mktemp("pub")
     endpoint = f"ipc://{d}/beam.sock"
     proc = subprocess.Popen(CLI + ["synth", "--endpoint", endpoint, "--rate-sps", "50000",
-                                   "--batch", "500", "--seed", "11", "--duration", "120"],
+                                   "--batch", "500", "--seed", "11", "--duration", "600"],
                             cwd=ROOT, env=_env(), stdout=subprocess.DEVNULL,
                             stderr=subprocess.DEVNULL)
     deadline = time.monotonic() + 15
@@ -122,7 +122,7 @@ def test_kill_minus_nine_loses_at_most_a_second(publisher, tmp_path):
             startup = (2 * round_ + j) % 4 == 0
             delay = rng.uniform(0.05, 1.0) if startup else rng.uniform(1.05, 2.5)
             runs.append(_Run(publisher, tmp_path / f"rec{round_}_{j}.lwsession", startup, delay))
-        deadline = time.monotonic() + 30
+        deadline = time.monotonic() + 120  # a bound against hanging; start-up is slow under load
         while any(r.killed_at is None for r in runs):
             assert time.monotonic() < deadline, "recorder never produced a readout"
             now = time.time()
@@ -180,8 +180,8 @@ def _feed(m: _Sinks, rx_t: float) -> None:
 
 
 def test_commits_follow_recorded_time_not_the_wall_clock(tmp_path):
-    """Commit as soon as 0.5 s of recorded time has passed: another process sees the
-    rows without the recorder being closed."""
+    """The first samples are committed at once, then whenever 0.5 s of recorded time
+    has passed: another process sees the rows without the recorder being closed."""
     from replay.recorder import Recorder
     m = _Sinks()
     path = tmp_path / "c.lwsession"
@@ -191,11 +191,13 @@ def test_commits_follow_recorded_time_not_the_wall_clock(tmp_path):
         with SessionReader(path) as r:
             return r.counts()["batches"]
 
-    for k in range(5):  # 0.0 .. 0.4 s: not yet due
+    _feed(m, 100.0)  # the first batch: committed at once (a kill now leaves it)
+    assert stored() == 1 and rec.commits == 1
+    for k in range(1, 5):  # 0.1 .. 0.4 s: not yet due
         _feed(m, 100.0 + 0.1 * k)
-    assert stored() == 0
-    _feed(m, 100.5)  # 0.5 s after the first row: commit
-    assert stored() == 6 and rec.commits == 1
+    assert stored() == 1
+    _feed(m, 100.5)  # 0.5 s after the last commit: commit
+    assert stored() == 6 and rec.commits == 2
     _feed(m, 100.6)
     assert stored() == 6
     rec.close()
@@ -239,3 +241,39 @@ def test_reference_trace_is_stored_with_its_event(tmp_path):
         (eid, ev), = r.event_rows()
         ref = r.reference_for(eid, ev)
     assert np.array_equal(ref.power_db, [-3.0, 0.0, -3.0]) and ref.metrics.hpbw_deg == 2.0
+
+
+def test_kill_minus_nine_in_the_first_second_keeps_what_was_taken_in(publisher, tmp_path):
+    """Killed 0.3 .. 0.9 s after its first readout, a recording is not empty: every
+    readout printed at least MAX_LOSS_S before the kill is in the file with its samples
+    (commits follow the recorded time every 0.2 s, and any pending data after 0.2 s of
+    wall time), and the file replays to the same readouts."""
+    rng = random.Random(20260102)
+    results = []
+    for k in range(4):
+        r = _Run(publisher, tmp_path / f"first{k}.lwsession", False, rng.uniform(0.3, 0.9))
+        deadline = time.monotonic() + 120  # a bound against hanging; start-up is slow under load
+        while r.killed_at is None:
+            assert time.monotonic() < deadline, "recorder never produced a readout"
+            if r.due(time.time()):
+                r.killed_at = time.time()
+                os.kill(r.proc.pid, signal.SIGKILL)
+            time.sleep(0.002)
+        r.proc.wait(10)
+        r.reader.join(10)
+        printed = _metrics("".join(r.lines))
+        assert printed and r.path.exists()
+        with SessionReader(r.path) as reader:
+            samples = reader.counts()["samples"]
+            ticks = {round(it.t, 4) for it in reader.iter_items(kinds=("tick",))}
+        due = [x for x in printed if x["t"] <= r.killed_at - MAX_LOSS_S]
+        results.append((r.killed_at - r.first_readout, len(printed), len(due), samples))
+        assert samples > 0, f"killed {r.killed_at - r.first_readout:.2f} s after the first " \
+                            "readout: empty session"
+        for x in due:
+            assert round(x["t"], 4) in ticks
+        if due:
+            assert samples >= due[-1]["samples"]
+            again = {x["t"]: x for x in _replay_metrics(r.path)}
+            assert all(again[x["t"]] == x for x in due)
+    assert sum(1 for *_, d, _s in results if d) >= 2, results

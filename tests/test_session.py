@@ -105,6 +105,8 @@ def test_plain_sqlite_and_numpy_read_samples(tmp_path, compress):
             want.append(b)
             w.write_batch(b)
             w.write_tick(b.rx_t, SourceStats("receiving", k))
+            if k % 3 == 2 or k == 7:
+                w.commit()  # one block per kind of data, each with its own encoding
     cwd = os.getcwd()
     os.chdir(tmp_path)
     try:
@@ -165,9 +167,28 @@ def test_killed_writer_leaves_a_readable_file_and_reader_keeps_it_intact(tmp_pat
     subprocess.run([sys.executable, "-c", code], check=True, cwd=os.getcwd())
     assert os.path.exists(f"{p}-wal")
     before = digest(p)
+    names = sorted(os.listdir(tmp_path))
     with SessionReader(p) as r:
         assert r.counts()["batches"] == 7
     assert digest(p) == before
+    assert sorted(os.listdir(tmp_path)) == names  # nothing created beside it
+    # the same files copied elsewhere without the -shm index (a user saving the session
+    # with its -wal after a crash): read-only uses still create nothing beside them
+    other = tmp_path / "copy"
+    other.mkdir()
+    shutil.copy(p, other / p.name)
+    shutil.copy(f"{p}-wal", other / f"{p.name}-wal")
+    q = other / p.name
+    for argv in (["info", str(q)], ["replay", str(q), "--headless"],
+                 ["export", str(q), "-o", "-"], ["report", str(q)]):
+        # report reads all 35 samples, then refuses the flat test data (exit 1)
+        assert main(argv) == (1 if argv[0] == "report" else 0), argv
+        assert sorted(os.listdir(other)) == sorted([p.name, f"{p.name}-wal"]), argv
+    with SessionReader(q) as r:
+        assert r.counts()["batches"] == 7  # the tail in the -wal file is read
+        assert r._snapshot_dir is not None and os.path.isdir(r._snapshot_dir)
+        snap = r._snapshot_dir
+    assert not os.path.exists(snap)  # the private copy is removed on close
 
 
 @pytest.mark.parametrize("case", ["missing", "empty", "text", "other_sqlite", "newer",
