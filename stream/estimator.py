@@ -672,7 +672,7 @@ class RollingPattern:
         angle = self._centres_deg[filled] + (self._sw_off_bins[filled] / cnt[filled]
                                              * self.config.bin_width_deg)
         power_db = 10.0 * np.log10(sums / cnt[filled])
-        metrics = measure(angle, power_db)
+        metrics = measure(angle, power_db, uncertainty=False)  # peak and width suffice
         self._history.append(SweepRecord(
             t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
             peak_power_db=metrics.peak_power_db, angle_min_deg=_wrap1(self._sw_lo_deg),

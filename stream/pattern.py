@@ -186,10 +186,7 @@ def _frame_or_reason(angle_deg: np.ndarray, power_db: np.ndarray) -> _Frame | Be
     # Re-centre on the peak sample: r is the offset from it, p_r the power.
     x_pk = float(x[i])
     if circular:
-        r = (x - x_pk + 180.0) % 360.0 - 180.0
-        order = np.argsort(r, kind="stable")
-        r = r[order]
-        pr = p[order]
+        r, pr = _sort_by((x - x_pk + 180.0) % 360.0 - 180.0, p)
         ic = int(np.searchsorted(r, 0.0))
     else:
         r = x - x_pk
@@ -368,9 +365,7 @@ def _frame(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool, 
     """
     w = a % 360.0
     w[w >= 360.0] = 0.0  # a tiny negative angle rounds to 360.0; it is 0
-    order = np.argsort(w, kind="stable")
-    ws = w[order]
-    ps = p[order]
+    ws, ps = _sort_by(w, p)
     # Merge duplicate angles in linear power.
     d = np.diff(ws)
     new = np.concatenate(([True], d > DUPLICATE_TOL_DEG))
@@ -394,14 +389,26 @@ def _frame(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool, 
     amax = float(a.max())
     if amax - amin < 360.0 and 360.0 - (amax - amin) >= gaps[g] - 1e-9:
         # A sector sweep that does not cross the seam of its own frame: keep that frame.
-        x = (ws - amin) % 360.0 + amin
-        o = np.argsort(x, kind="stable")
-        return x[o], ps[o], False, False
+        x, ps = _sort_by((ws - amin) % 360.0 + amin, ps)
+        return x, ps, False, False
     # Cut the circle at its largest gap.
     start = ws[(g + 1) % n]
-    x = (ws - start) % 360.0 + start
+    x, ps = _sort_by((ws - start) % 360.0 + start, ps)
+    return x, ps, False, True
+
+
+def _sort_by(x: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``x`` and ``p`` in ascending order of ``x`` (stable), as ``np.argsort`` gives it.
+
+    Angles taken mod 360 from a sorted pattern are a rotated increasing sequence (the
+    estimator's snapshots always are): then one rotation at the minimum sorts them, and
+    with no equal values it is the only ascending order, so the result is argsort's."""
+    k = int(x.argmin())
+    xs = np.concatenate((x[k:], x[:k])) if k else x
+    if (xs[1:] > xs[:-1]).all():
+        return xs, (np.concatenate((p[k:], p[:k])) if k else p)
     o = np.argsort(x, kind="stable")
-    return x[o], ps[o], False, True
+    return x[o], p[o]
 
 
 def _vertex(r: np.ndarray, p: np.ndarray, k: int, circular: bool) -> tuple[float, float]:
