@@ -12,24 +12,16 @@ import json
 import math
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from replay.pattern_input import PatternInput, read_pattern
-from replay.record import (
-    Reference,
-    load_mask,
-    load_spec,
-    record_data_from_input,
-    record_dict,
-    reference_differences,
-    reference_from_input,
-    write_record,
-)
-from replay.report import LABELS
-from stream.array_model import TAPER_NAMES, ArrayModel
-from stream.beam import METRIC_KEYS
-from stream.spec import Assessment, Spec, assess
+from stream.array_model import TAPER_NAMES
 from tui.cli import UsageError
+
+if TYPE_CHECKING:  # the work is imported by run(): scipy and matplotlib load only then
+    from replay.pattern_input import PatternInput
+    from replay.record import Reference
+    from stream.array_model import ArrayModel
+    from stream.spec import Assessment, Spec
 
 #: Exit status for a verdict other than pass (the same code ``--fail-on`` uses).
 EXIT_NOT_PASSED: int = 3
@@ -164,6 +156,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def _model(args: argparse.Namespace, inp: PatternInput) -> ArrayModel | None:
+    from stream.array_model import ArrayModel
+
     given = [n for n in ("spacing_wl", "element_exp", "steer_deg", "taper")
              if getattr(args, n) is not None]
     if args.elements is None:
@@ -190,6 +184,9 @@ def _model(args: argparse.Namespace, inp: PatternInput) -> ArrayModel | None:
 
 
 def _spec(args: argparse.Namespace) -> Spec:
+    from replay.record import load_mask, load_spec
+    from stream.spec import Spec
+
     spec = load_spec(args.spec) if args.spec else Spec()
     mask = load_mask(args.mask) if args.mask else None
     spec = spec.merged(target_deg=args.target_deg, tolerance_deg=args.tolerance_deg,
@@ -205,6 +202,7 @@ def _spec(args: argparse.Namespace) -> Spec:
 
 def _read(path: str, args: argparse.Namespace) -> PatternInput:
     from replay.convert import Progress
+    from replay.pattern_input import read_pattern
 
     bar: list[Progress] = []
 
@@ -226,6 +224,14 @@ def _read(path: str, args: argparse.Namespace) -> PatternInput:
 
 
 def run(args: argparse.Namespace) -> int:
+    from replay.record import (
+        record_data_from_input,
+        record_dict,
+        reference_from_input,
+        write_record,
+    )
+    from stream.spec import assess
+
     spec = _spec(args)
     meta: dict[str, Any] = {"site": args.site, "array": args.array, "operator": args.operator,
                             "notes": "; ".join(args.note) if args.note else None}
@@ -274,6 +280,10 @@ def format_results(results: list[tuple[PatternInput, Assessment, dict[str, Any]]
                    reference: Reference | None) -> str:
     """The verdict table of each file, then (several files) the side-by-side metrics
     with the difference against the first."""
+    from replay.record import reference_differences
+    from replay.report import LABELS
+    from stream.beam import METRIC_KEYS
+
     out: list[str] = []
     for inp, asmt, _ in results:
         out.append(f"{inp.path}: {asmt.verdict.upper()} ({asmt.verdict_reason})")
