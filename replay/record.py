@@ -369,7 +369,9 @@ def _tables(asmt: Assessment, data: RecordData) -> list[tuple[str, list[str], li
     t: list[tuple[str, list[str], list[list[str]]]] = []
     t.append(("Verdict", ["criterion", "measured", "limit", "margin", "result", "note"],
               [[c.name, _fmt(c.measured) + (f" {c.unit}" if c.measured is not None else ""),
-                c.limit_text, _fmt(c.margin, signed=True), c.result.upper(), c.reason]
+                c.limit_text, _fmt(c.margin, signed=True) + (f" {c.unit}" if c.margin is not None
+                                                             else ""),
+                c.result.upper(), c.reason]
                for c in asmt.criteria]))
     rows = []
     ref = reference_differences(asmt.metrics, data.reference.metrics) \
@@ -414,7 +416,7 @@ def _header_lines(asmt: Assessment, data: RecordData) -> list[tuple[str, str]]:
              ("lobewatch", version()),
              ("Nominal model", "none" if asmt.model is None else ", ".join(
                  f"{k}={v}" for k, v in asmt.model.to_dict().items())),
-             ("Specification", "options" if data.spec is None or not data.spec.source
+             ("Specification", "command-line options" if data.spec is None or not data.spec.source
               else data.spec.source)]
     if m.get("notes"):
         lines.append(("Notes", str(m["notes"])))
