@@ -70,8 +70,10 @@ def parse_array(text: str, base: SynthConfig, index: int) -> tuple[str, SynthCon
         raise UsageError(f"--array {text!r}: {exc}") from None
 
 
-def run_arrays(args: argparse.Namespace, base: SynthConfig, stop: threading.Event) -> int:
+def run_arrays(args: argparse.Namespace, base: SynthConfig, stop: threading.Event,
+               **publisher_kw: Any) -> int:
     """Publish every ``--array`` until ``stop`` (or ``--duration``); returns messages sent.
+    ``publisher_kw`` goes to every :func:`stream.synth.run_publisher` (e.g. ``curve``).
     A failure in one publisher stops them all and is raised here."""
     arrays = [parse_array(t, base, i) for i, t in enumerate(args.arrays)]
     sent = [0] * len(arrays)
@@ -86,7 +88,7 @@ def run_arrays(args: argparse.Namespace, base: SynthConfig, stop: threading.Even
     def publish(i: int, endpoint: str, cfg: SynthConfig) -> None:
         try:
             sent[i] = run_publisher(endpoint, cfg, stop, duration_s=args.duration,
-                                    on_ready=lambda addr: ready(addr, cfg))
+                                    on_ready=lambda addr: ready(addr, cfg), **publisher_kw)
         except BaseException as exc:  # noqa: BLE001 - reported in the main thread
             errors.append(exc)
             stop.set()
