@@ -192,3 +192,14 @@ def test_write_record_from_tick_uses_the_same_path(tmp_path):
     assert rec["verdict"] == "pass" and rec["criteria"][0]["name"] == "pointing"
     assert rec["meta"]["site"] == "Invented"
     _not_blank(tmp_path / "screen" / "polar.png", (640, 640))
+
+
+def test_session_reading_reports_progress(tmp_path):
+    from replay.pattern_input import read_pattern
+
+    session = make_session(tmp_path / "p.lwsession", duration_s=30.0, rate_sps=1000.0)
+    calls: list[tuple[int, int]] = []
+    inp = read_pattern(session, progress=lambda done, total: calls.append((done, total)))
+    assert len(calls) >= 5                                  # ~4,096 samples per call
+    assert calls[-1] == (30_000, 30_000) == (inp.samples, inp.samples)
+    assert all(a[0] <= b[0] for a, b in zip(calls, calls[1:], strict=False))
