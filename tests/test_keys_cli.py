@@ -101,6 +101,11 @@ def test_live_and_synth_option_errors_are_one_line(tmp_path, capsys):
          "--insecure-listen"),
         (["synth", "--curve-secret", str(tmp_path / "m.key"), "--curve-allow",
           str(tmp_path), "--duration", "0.1"], "only a public key"),
+        (["synth", "--iq", "--curve-secret", str(tmp_path / "m.key_secret"), "--curve-allow",
+          str(tmp_path), "--duration", "0.1"], "do not apply to --iq"),
+        (["live", "--iq", "tcp://127.0.0.1:5560", "--angle", "tcp://127.0.0.1:5561",
+          "--headless", "--curve-secret", str(tmp_path / "m.key_secret"), "--curve-server",
+          str(tmp_path / "m.key")], "do not apply to --iq"),
     ]
     for argv, match in cases:
         assert main(argv) == 2, argv

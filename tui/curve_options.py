@@ -114,3 +114,12 @@ def check_listen(endpoint: str, *, curve: CurveConfig | None, insecure: bool,
     print(f"lobewatch: warning: {endpoint} listens on {shown} without authentication; "
           f"anyone who can reach that port can {what}",
           file=warn if warn is not None else sys.stderr, flush=True)
+
+
+def refuse_curve(args: argparse.Namespace, mode: str) -> None:
+    """Refuse ``--curve-*`` in a mode whose sockets do not take CURVE yet, rather than
+    silently running without it."""
+    if any(getattr(args, k, None) for k in ("curve_secret", "curve_server", "curve_allow")):
+        raise UsageError(f"--curve-secret/--curve-server/--curve-allow do not apply to {mode} "
+                         "yet; carry that feed over an SSH tunnel instead "
+                         "(docs/wire-format.md)")

@@ -13,7 +13,7 @@ from stream.monitor import Monitor
 from stream.wire import DEFAULT_MAX_MESSAGE_BYTES, FORMATS
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
 from tui.cli import UsageError
-from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
+from tui.curve_options import add_curve_arguments, check_listen, curve_from_args, refuse_curve
 from tui.fleet_options import add_fleet_arguments, fleet_requested
 from tui.iq_options import add_iq_arguments, bearing_from_args, run_iq_live
 from tui.options import add_pipeline_arguments, add_screen_arguments, build_monitor
@@ -136,6 +136,7 @@ def run(args: argparse.Namespace) -> int:
     from stream.zmq_source import ZmqSource
 
     if args.iq:  # IQ samples + positioner angle instead of ENDPOINT (tui/iq_options.py)
+        refuse_curve(args, "--iq")  # no CURVE on the IQ sockets yet
         return run_iq_live(args)
     if not args.endpoint or fleet_requested(args):  # several streams / metrics endpoint
         from tui.fleet_run import run_fleet

@@ -13,7 +13,7 @@ from stream.errors import UserError
 from stream.scenarios import SCENARIOS
 from stream.synth import DEFAULT_ENDPOINT, SYNTH_FORMATS, SynthConfig, run_publisher
 from tui.cli import UsageError
-from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
+from tui.curve_options import add_curve_arguments, check_listen, curve_from_args, refuse_curve
 from tui.fleet_synth import add_array_arguments, run_arrays
 from tui.iq_options import add_iq_arguments, run_iq_synth
 from tui.options import taper_help
@@ -131,6 +131,7 @@ def run(args: argparse.Namespace) -> int:
         print(list_scenarios())
         return 0
     if args.iq:  # simulated IQ + angle telemetry (tui/iq_options.py)
+        refuse_curve(args, "--iq")  # no CURVE on the IQ sockets yet
         return run_iq_synth(args)
     config = config_from_args(args)
     curve = curve_from_args(args, bind=True)  # the publisher binds: a CURVE server
