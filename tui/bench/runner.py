@@ -25,7 +25,7 @@ from tui.bench import side_by_side
 from tui.bench.figures import Progress, figure, quiet
 
 GROUPS: tuple[str, ...] = ("side", "metrics", "naive", "ingest", "latency", "redraw",
-                           "replay", "curve", "iq", "fleet", "commission")
+                           "replay", "curve", "iq", "fleet", "commission", "reliability")
 
 #: The figures each group yields (a failed group reports these with no value).
 GROUP_FIGURES: dict[str, tuple[str, ...]] = {
@@ -44,6 +44,11 @@ GROUP_FIGURES: dict[str, tuple[str, ...]] = {
     "fleet": ("fleet_cpu_pct", "fleet_lost", "fleet_rss_mb", "fleet_scrape_ms",
               "fleet_scrape_max_ms", "fleet_collect_ms", "fleet_sps"),  # tui/bench/fleet.py
     "commission": ("commission_fit_ms", "commission_record_s"),  # tui/bench/commission.py
+    "reliability": ("reliability_resume_p50_ms", "reliability_resume_max_ms",
+                    "reliability_flood_timer_hz", "reliability_flood_gap_ms",
+                    "reliability_decode_sps", "reliability_burst_rss_mb",
+                    "reliability_burst_gap_ms",
+                    "reliability_burst_rss_hwm50_mb"),  # tui/bench/reliability.py
 }
 
 # Targets (issue 7, on the project's 2-core machine).
@@ -246,6 +251,9 @@ def run_bench(quick: bool = False, only: tuple[str, ...] | None = None,
     if "commission" in chosen:
         from tui.bench.commission import run_group as run_commission
         guarded(("commission",), run_commission)
+    if "reliability" in chosen:
+        from tui.bench.reliability import run_group as run_reliability
+        guarded(("reliability",), run_reliability)
     order = [name for g in GROUPS for name in GROUP_FIGURES[g]]
     ordered = {k: figs[k] for k in order if k in figs}
     ordered.update({k: v for k, v in figs.items() if k not in ordered})
