@@ -52,6 +52,10 @@ class Monitor:
         self.event_sinks: list[Callable[[Event], None]] = []
         self._expected_hpbw = _model_hpbw(model) if model is not None else None
         self._columns: tuple[int, object] | None = None  # (sweep count, ColumnDiagnosis)
+        #: Diagnose the columns (Tick.columns) once per completed sweep when a model is
+        #: set.  Off by default: a few least-squares fits per sweep are worth it on a
+        #: screen, not in a fast replay or a headless run; the beam screen turns it on.
+        self.diagnose_columns = False
 
     # -- data in ---------------------------------------------------------------------
     def ingest(self, batch: SampleBatch) -> None:
@@ -183,7 +187,7 @@ class Monitor:
         """Column diagnosis of the pattern, recomputed only when a sweep has completed
         since the last one (it costs a few least-squares fits); None without a model."""
         count = self.estimator.sweep_count
-        if self.model is None or count < 1:
+        if self.model is None or not self.diagnose_columns or count < 1:
             return None
         if self._columns is None or self._columns[0] != count:
             # Imported here: scipy.optimize costs start-up time a model-less run never needs.

@@ -119,7 +119,7 @@ class Tick:
     provisional: bool = True
     bearing: Any = None  # stream.bearing.BearingConvention when the user set one
     #: stream.diagnosis.ColumnDiagnosis of the last completed sweep when a model is set
-    #: (recomputed at most once per completed sweep), else None.
+    #: and Monitor.diagnose_columns is on (recomputed at most once per sweep), else None.
     columns: Any = None
 
     def metrics_record(self) -> dict[str, Any]:

@@ -87,10 +87,12 @@ def test_single_column_has_nothing_to_diagnose():
     assert d.suspects == [] and d.amplitudes == [1.0]
 
 
-def test_monitor_puts_the_diagnosis_on_ticks_once_per_sweep():
+def test_monitor_puts_the_diagnosis_on_ticks_once_per_sweep_when_asked():
     model = ArrayModel(4, element_exp=1.0)
     amps = [1.0, 0.0, 1.0, 1.0]
     mon = Monitor(RollingPattern(EstimatorConfig(bin_deg=1.0)), None, model)
+    off = Monitor(RollingPattern(EstimatorConfig(bin_deg=1.0)), None, model)
+    mon.diagnose_columns = True      # the beam screen's setting; off by default
     bare = Monitor(RollingPattern(EstimatorConfig(bin_deg=1.0)), None, None)
     t = 1000.0
     seen: list[ColumnDiagnosis | None] = []
@@ -103,8 +105,10 @@ def test_monitor_puts_the_diagnosis_on_ticks_once_per_sweep():
             b = SampleBatch.from_arrays(a[i:i + 30], p[i:i + 30], t, rx_t=t)
             mon.ingest(b)
             bare.ingest(b)
+            off.ingest(b)
             seen.append(mon.tick(t).columns)
             assert bare.tick(t).columns is None
+            assert off.tick(t).columns is None
     assert seen[0] is None                         # no completed sweep yet
     last = seen[-1]
     assert isinstance(last, ColumnDiagnosis)
