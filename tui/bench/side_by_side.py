@@ -22,6 +22,7 @@ or lobewatch rate / hand-written rate, so >= 1 means lobewatch is ahead):
 from __future__ import annotations
 
 import asyncio
+import functools
 import os
 import tempfile
 import time
@@ -180,9 +181,26 @@ def _replay(quick: bool, runs: int, progress: Progress) -> dict[str, float]:
 
 
 # -- metrics --------------------------------------------------------------------------------
+def _cpu_pair(f: Any, g: Any, runs: int) -> tuple[float, float]:
+    """Median CPU seconds of ``f()`` and of ``g()``, calls interleaved so a busy machine
+    slows both alike (thread CPU time: other processes do not count)."""
+    f()
+    g()
+    tf, tg = [], []
+    for _ in range(runs):
+        t0 = time.thread_time()
+        f()
+        t1 = time.thread_time()
+        g()
+        t2 = time.thread_time()
+        tf.append(t1 - t0)
+        tg.append(t2 - t1)
+    return median(tf), median(tg)
+
+
 def _metrics(runs: int) -> dict[str, float]:
     from stream.pattern import measure
-    from tui.bench.metrics import median_time, patterns
+    from tui.bench.metrics import patterns
     out: dict[str, float] = {}
     for n, label, a, p in patterns():
         if n != 3600:
@@ -194,8 +212,8 @@ def _metrics(runs: int) -> dict[str, float]:
         # The baseline's smoothing window: about a third of the beamwidth, odd.
         step = float(np.median(np.diff(a)))
         win = 2 * int((m.hpbw_deg or 30.0) / 3.0 / step / 2) + 1 if noisy else 0
-        lw = median_time(measure, a, p, runs=runs)
-        hand = median_time(hand_metrics, a, p, win, runs=runs)
+        lw, hand = _cpu_pair(functools.partial(measure, a, p),
+                             functools.partial(hand_metrics, a, p, win), runs)
         key = "noisy" if noisy else "clean"
         out[f"{key}_ms"] = lw * 1e3
         out[f"{key}_ratio"] = hand / lw
