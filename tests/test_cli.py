@@ -188,3 +188,16 @@ def test_unnamed_recordings_go_to_the_sessions_folder(tmp_path, monkeypatch):
     assert args.record == ""  # --record without FILE: a new file in the sessions folder
     args = build_parser().parse_args(["live", "tcp://127.0.0.1:1", "--record", "x" + SUFFIX])
     assert args.record == "x" + SUFFIX
+
+
+def test_replay_uses_recorded_alarm_settings_unless_an_alarm_option_is_given():
+    """An option without a default (argparse.SUPPRESS, e.g. the old --stale-s name) must
+    not count as given: otherwise a replay silently drops the recorded thresholds."""
+    from tui.commands.replay import _given
+    args = build_parser().parse_args(["replay", "x" + SUFFIX, "--headless"])
+    dests = [d for d in args._defaults if d not in ("file", "headless", "func", "_defaults")]
+    assert not _given(args, dests)
+    args = build_parser().parse_args(["replay", "x" + SUFFIX, "--stale-s", "7"])
+    assert _given(args, ["stale_after"])
+    args = build_parser().parse_args(["replay", "x" + SUFFIX, "--sll-limit-db", "-20"])
+    assert _given(args, ["sll_limit_db"])

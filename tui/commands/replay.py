@@ -60,7 +60,15 @@ def register(subparsers: Any) -> None:
 
 def _given(args: argparse.Namespace, dests: tuple[str, ...] | list[str]) -> bool:
     defaults = getattr(args, "_defaults", {})
-    return any(d in defaults and getattr(args, d, None) != defaults[d] for d in dests)
+
+    def given(d: str) -> bool:
+        if d not in defaults:
+            return False
+        if defaults[d] is argparse.SUPPRESS:  # an option without a default: given if set
+            return hasattr(args, d)
+        return getattr(args, d, defaults[d]) != defaults[d]
+
+    return any(given(d) for d in dests)
 
 
 def monitor_for_session(args: argparse.Namespace, meta: dict[str, Any]) -> Monitor:
