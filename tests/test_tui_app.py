@@ -243,24 +243,49 @@ async def test_footer_offers_every_live_key_and_no_replay_key() -> None:
         assert "space" not in shown and "left" not in shown
 
 
+async def help_text(app: LobewatchApp, pilot, size=(100, 160)) -> str:
+    """The help page as shown on a terminal tall enough to hold all of it."""
+    await pilot.resize_terminal(*size)
+    await pilot.press("question_mark")
+    await pilot.pause()
+    assert isinstance(app.screen, HelpScreen)
+    return screen_text(app)
+
+
 async def test_help_page_lists_every_offered_key_from_the_bindings() -> None:
     app = make_app()
-    async with app.run_test(size=(100, 40)) as pilot:
+    async with app.run_test(size=(80, 24)) as pilot:
         keys = beam(app).help_keys()
-        await pilot.press("question_mark")
-        assert isinstance(app.screen, HelpScreen)
-        body = " ".join(str(w.render()) for w in app.screen.query("Static"))
+        body = " ".join((await help_text(app, pilot)).split())
         assert ("p", "pause / resume the display (data keeps flowing in)") in keys
         assert all(not text.startswith("replay:") for _, text in keys)
         for _, text in keys:
             assert text in body, text
 
 
+async def test_help_page_indents_a_wrapped_key_line_under_its_text() -> None:
+    app = make_app()
+    async with app.run_test(size=(80, 24)) as pilot:
+        lines = (await help_text(app, pilot, size=(56, 160))).splitlines()
+        row = next(i for i, line in enumerate(lines) if "│ p  pause" in line)
+        text_col = lines[row].index("pause")
+        follow = lines[row + 1]  # "(data keeps flowing in)" wrapped to the next line
+        assert follow[text_col - 3:text_col] == "   " and follow[text_col] != " "
+
+
+async def test_help_page_indents_a_wrapped_safety_bullet() -> None:
+    app = make_app()
+    async with app.run_test(size=(80, 24)) as pilot:
+        lines = (await help_text(app, pilot, size=(56, 160))).splitlines()
+        row = next(i for i, line in enumerate(lines) if "• RF exposure" in line)
+        text_col = lines[row].index("RF exposure")
+        assert lines[row + 1][text_col - 1] == " " and lines[row + 1][text_col] != " "
+
+
 async def test_help_page_explains_readings_and_carries_safety() -> None:
     app = make_app()
-    async with app.run_test(size=(100, 40)) as pilot:
-        await pilot.press("question_mark")
-        body = " ".join(str(w.render()) for w in app.screen.query("Static"))
+    async with app.run_test(size=(80, 24)) as pilot:
+        body = " ".join((await help_text(app, pilot)).split())
         for word in ("HPBW", "FNBW", "SLL", "F/B", "half-power", "STALE",
                      "main beam", "RF exposure", "Work at height", "licensed",
                      "Local codes"):
@@ -509,6 +534,27 @@ async def test_replay_status_shows_speed_and_position() -> None:
         assert "╸" in plain  # the position bar
 
 
+async def test_replay_key_bar_at_80_columns_keeps_the_playback_keys_and_help() -> None:
+    """At 80 columns not every key fits: the playback keys and ``? help`` (where the
+    rest are listed) stay, the bar is not cut mid-word."""
+    app = make_app(driver=FakePlayer(), mode="replay")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause()
+        bar = screen_text(app).splitlines()[-1]
+        for word in ("␣ play", "- + speed", "← → ±10s", "[ ] event", "? help", "q quit"):
+            assert word in bar, word
+        assert len(bar.rstrip()) <= 80 and "…" not in bar
+
+
+async def test_live_key_bar_at_80_columns_shows_every_live_key() -> None:
+    app = make_app()
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause()
+        bar = screen_text(app).splitlines()[-1]
+        for desc in LIVE_KEYS.values():
+            assert desc in bar, desc
+
+
 async def test_replay_footer_offers_the_playback_keys_and_not_recording() -> None:
     app = make_app(driver=FakePlayer(), mode="replay")
     async with app.run_test(size=(160, 30)) as pilot:
@@ -577,8 +623,10 @@ async def test_alarm_list_shows_active_alarms_worst_first() -> None:
     app = make_app(make_monitor(alarms=TwoAlarms()))
     async with app.run_test(size=(160, 30)):
         lines = app.screen.query_one(AlarmList).lines
-        assert lines[0].startswith("CRIT ! ") and "gain_loss 7.2 dB vs 3.0 dB" in lines[0]
-        assert lines[1].startswith("MINR ✓ ") and "drift 2.5° vs 2.0°" in lines[1]
+        # one row format: time, rule, "value vs limit unit"
+        assert lines[0].startswith("CRIT ! ") and "gain_loss 7.2 vs 3.0 dB" in lines[0]
+        assert lines[1].startswith("MINR ✓ ") and "drift 2.5 vs 2.0°" in lines[1]
+        assert "12:" in lines[0] or ":" in lines[0].split()[2]
 
 
 async def test_alarm_rows_keep_value_and_threshold_on_a_narrow_screen() -> None:
@@ -589,7 +637,7 @@ async def test_alarm_rows_keep_value_and_threshold_on_a_narrow_screen() -> None:
         beam(app).refresh_view()
         alarm_list = app.screen.query_one(AlarmList)
         lines = alarm_list.lines
-        assert "gain 7.2 dB vs 3.0 dB" in lines[0] and "drift 2.5° vs 2.0°" in lines[1]
+        assert "7.2 vs 3.0 dB" in lines[0] and "2.5 vs 2.0°" in lines[1]
         assert all(len(line) <= alarm_list.content_size.width for line in lines)
 
 
@@ -650,3 +698,65 @@ async def test_the_app_leaves_the_collector_alone_under_tests() -> None:
     app = make_app()
     async with app.run_test(size=(80, 24)):
         assert not app.gc_pacer.active
+
+
+# -- a large terminal: readout and alarms get the room; the alarm history ----------------
+
+async def test_at_120x40_the_side_column_is_wider_than_at_80x24() -> None:
+    app = make_app(make_monitor(alarms=TwoAlarms()))
+    async with app.run_test(size=(80, 24)) as pilot:
+        narrow = app.screen.query_one("#side").size.width
+        await pilot.resize_terminal(120, 40)
+        await pilot.pause()
+        wide = app.screen.query_one("#side").size.width
+        assert wide >= 50 > narrow
+        history = app.screen.query_one("#history")
+        assert history.display and history.size.height >= 5
+        assert app.screen.query_one("#alarms").size.height >= 2  # both alarms, one row each
+
+
+class AckingAlarms(TwoAlarms):
+    def acknowledge(self, key=None):
+        return ["gain_loss"]
+
+
+async def test_alarm_history_keeps_raised_acknowledged_and_cleared_rows() -> None:
+    from stream.tick import Event
+    mon = make_monitor(alarms=AckingAlarms())
+    app = make_app(mon)
+    async with app.run_test(size=(120, 40)) as pilot:
+        t0 = 1767269000.0
+        base = {"rule": "gain_loss", "value": 7.2, "threshold": 3.0, "unit": "dB",
+                "key": "gain_loss"}
+        mon.emit(Event(t0, "alarm", {**base, "transition": "raise"}))
+        beam(app).refresh_view()
+        await pilot.press("a")
+        mon.emit(Event(t0 + 60.0, "alarm", {**base, "value": 1.0, "transition": "clear"}))
+        beam(app).refresh_view()
+        rows = app.screen.query_one("#history").rows
+        assert [r.split()[1] for r in rows] == ["RAISED", "ACKED", "CLEARED"]
+        assert rows[0].endswith("gain_loss 7.2 vs 3.0 dB")
+        assert rows[2].endswith("gain_loss 1.0 vs 3.0 dB")
+        assert all(re.match(r"\d\d:\d\d:\d\d ", r) for r in rows)
+
+
+async def test_alarm_history_scrolls_to_the_newest_row() -> None:
+    from stream.tick import Event
+    mon = make_monitor(alarms=TwoAlarms())
+    app = make_app(mon)
+    async with app.run_test(size=(120, 40)) as pilot:
+        for k in range(60):
+            mon.emit(Event(1767269000.0 + k, "alarm", {
+                "rule": "drift", "value": 2.5, "threshold": 2.0, "unit": "deg",
+                "transition": "raise" if k % 2 == 0 else "clear"}))
+        beam(app).refresh_view()
+        await pilot.pause()
+        history = app.screen.query_one("#history")
+        assert len(history.rows) == 60
+        assert history.max_scroll_y > 0 and history.scroll_y == history.max_scroll_y
+
+
+async def test_the_status_line_says_when_simulated_time_runs_faster() -> None:
+    app = make_app(mode="demo", mode_note="sim time 10×")
+    async with app.run_test(size=(80, 24)):
+        assert "demo · sim time 10×" in app.screen.query_one(StatusLine).plain

@@ -7,6 +7,8 @@ import argparse
 import os
 import time
 
+import pytest
+
 from stream.live import LiveDriver
 from stream.zmq_source import ZmqSource
 from tui.app import LobewatchApp
@@ -185,3 +187,12 @@ def test_demo_mast_sway_raises_drift_only_after_the_peak_passes_the_tolerance() 
     events, _ = _demo_alarms("mast-sway", 240.0)
     drift = [t for t, rule, tr in events if rule == "drift" and tr == "raise"]
     assert drift and 170.0 < drift[0] < 230.0, events
+
+
+def test_speed_option_is_checked_and_the_factor_kept() -> None:
+    from tui.cli import UsageError
+    from tui.speed_options import speed_from_args, speed_note
+    assert speed_from_args(demo_args("--speed", "10")) == 10.0
+    assert speed_note(10.0) == "sim time 10×" and speed_note(1.0) is None
+    with pytest.raises(UsageError, match="--speed"):
+        speed_from_args(demo_args("--speed", "0"))

@@ -75,3 +75,48 @@ def test_beam_screen_stale_360_120x40(snap_compare, utc) -> None:
     assert snap_compare(make_app(state="stale", span_deg=180.0, step_deg=2.0,
                                  with_reference=False),
                         terminal_size=(120, 40), run_before=show_fixed_tick)
+
+
+class FakePlayer:
+    """Replay controls with a fixed position (nothing moves)."""
+
+    speed = 1.0
+    paused = False
+
+    async def run(self, stop) -> None:
+        await stop.wait()
+
+    @property
+    def position(self):
+        return (SAMPLE_T0 + 300.0, SAMPLE_T0 + 200.0, SAMPLE_T0 + 600.0)
+
+    def pause(self) -> None: ...
+    def resume(self) -> None: ...
+    def set_speed(self, speed: float) -> None: ...
+    def seek(self, delta_s: float) -> None: ...
+    def next_event(self) -> None: ...
+    def prev_event(self) -> None: ...
+
+
+def test_replay_80x24_keeps_the_playback_keys(snap_compare, utc) -> None:
+    mon = Monitor(RollingPattern(EstimatorConfig()), FixedAlarms(), sample_model())  # type: ignore[arg-type]
+    mon.last_tick = sample_tick()
+    app = LobewatchApp(mon, FakePlayer(), mode="replay", refresh_hz=0)
+    assert snap_compare(app, terminal_size=(80, 24), run_before=show_fixed_tick)
+
+
+async def show_alarm_history(pilot) -> None:
+    from stream.tick import Event
+    app = pilot.app
+    for k, (rule, tr, value, limit, unit) in enumerate((
+            ("drift", "raise", 3.2, 3.0, "deg"), ("sidelobe_rise", "raise", -13.3, -15.0, "dB"),
+            ("sidelobe_rise", "ack", -13.3, -15.0, "dB"), ("gain_loss", "raise", 2.4, 2.0, "dB"),
+            ("gain_loss", "clear", 0.4, 2.0, "dB"))):
+        app.monitor.emit(Event(SAMPLE_T0 + 200.0 + 25.0 * k, "alarm", {
+            "rule": rule, "transition": tr, "value": value, "threshold": limit,
+            "unit": unit}))
+    await show_fixed_tick(pilot)
+
+
+def test_beam_screen_120x40_with_alarm_history(snap_compare, utc) -> None:
+    assert snap_compare(make_app(), terminal_size=(120, 40), run_before=show_alarm_history)

@@ -222,3 +222,122 @@ def test_formatting_helpers() -> None:
     assert nice_step(40, 4) == 10 and nice_step(7, 3) == 5
     assert position_bar(50, 0, 100, 10) == "━━━━━╸────"
     assert position_bar(100, 0, 100, 10) == "━" * 10
+
+
+# -- screen defects found in use (issue: the screen as a field engineer uses it) ----------
+
+def test_trend_axis_never_reads_minus_zero() -> None:
+    from tui.widgets.trend import trend_label
+    assert trend_label(-0.0001, 5.0) == "0°" and trend_label(-1e-12, 0.5) == "0°"
+    assert trend_label(-2.0, 2.0) == "-2°" and trend_label(0.5, 0.5) == "+0.5°"
+
+
+def test_trend_labels_the_top_and_bottom_of_a_rescaled_axis() -> None:
+    """Peaks drifting from -0.5 to +4.5 deg with a +/-2 deg band: labels at 2-degree
+    steps cover the span, the topmost included, and none reads -0."""
+    from dataclasses import replace
+    t = sample_tick(target_deg=0.0)
+    peaks = np.linspace(-0.5, 4.5, t.sweep_peak_t.size)
+    tr = TrendPlot()
+    tr.tick = replace(t, sweep_peaks_deg=peaks, tolerance_deg=2.0)
+    c = BrailleCanvas(34, 9)
+    tr.draw(c)
+    labels = [line[:5].strip() for line in c.to_text().splitlines()[:-1]]
+    labels = [x for x in labels if x]
+    assert labels == ["+4°", "+2°", "0°", "-2°"]
+
+
+@pytest.mark.parametrize("scale", ["db", "linear"])
+async def test_half_circle_labels_both_sides_in_either_scale(scale) -> None:
+    polar = PolarPlot()
+    app = OneWidget(polar)
+    async with app.run_test(size=(44, 14)) as pilot:
+        polar.tick = gaussian_tick(0.0, lo=-90, hi=90)
+        polar.scale = scale
+        await pilot.pause()
+        text = "\n".join(polar.render_line(y).text for y in range(14))
+        assert "-90" in text and "+90" in text
+
+
+async def test_full_circle_names_180_and_keeps_ring_labels_off_the_trace() -> None:
+    polar = PolarPlot()
+    app = OneWidget(polar)
+    async with app.run_test(size=(60, 24)) as pilot:
+        polar.tick = gaussian_tick(0.0, lo=-180, hi=178, step=2.0)
+        await pilot.pause()
+        lines = [polar.render_line(y).text for y in range(24)]
+        assert any("±180" in line for line in lines)
+        # the rings are named in a corner legend, not on the axis inside the circle
+        assert lines[-1].startswith("○ 10 dB/ring")
+        assert not any("-10" in line for line in lines[:-1])
+
+
+async def test_polar_title_shortens_rather_than_run_into_a_label() -> None:
+    polar = PolarPlot()
+    app = OneWidget(polar)
+    async with app.run_test(size=(44, 7)) as pilot:  # short: the -30 label on row 0
+        polar.tick = gaussian_tick(0.0, lo=-90, hi=90)
+        polar.scale = "linear"
+        await pilot.pause()
+        top = polar.render_line(0).text
+        assert top.startswith("linear ") and "linear-" not in top
+
+
+def test_trace_angle_labels_carry_the_degree_unit() -> None:
+    tp = TracePlot(model=None)
+    tp.tick = gaussian_tick(0.0, lo=-90, hi=90)
+    c = BrailleCanvas(60, 12)
+    tp.draw(c)
+    bottom = c.to_text().splitlines()[-1].split()
+    assert bottom and all(label.endswith("°") for label in bottom)
+
+
+def _two_sided_tick(left_db: float, right_db: float, report_right: bool) -> Tick:
+    """A main lobe at 0 deg and first side lobes at -47.4 and +47.4 deg (levels given,
+    relative to the peak); the metrics name the side ``report_right`` says."""
+    a = np.arange(-90.0, 90.5, 0.5)
+    p = -30.0 + np.maximum(-40.0, -0.02 * a ** 2)
+    for at, lvl in ((-47.4, left_db), (47.4, right_db)):
+        p = np.maximum(p, -30.0 + lvl - 0.05 * (a - at) ** 2)
+    at = 47.4 if report_right else -47.4
+    m = BeamMetrics(peak_angle_deg=0.0, peak_power_db=-30.0,
+                    sll_db=right_db if report_right else left_db, sll_angle_deg=at)
+    return Tick(t=1.0, metrics=m, angle_deg=a, power_db=p, samples=10, sweeps=1,
+                rate_sps=10.0, peak_angle_spread_deg=None, sweep_peaks_deg=np.array([]),
+                sweep_peak_t=np.array([]), last_sample_t=1.0, source=SourceStats("receiving"))
+
+
+def test_side_lobe_direction_holds_on_a_symmetric_pattern() -> None:
+    """Equal side lobes (within the noise) either side: the estimator may name either
+    one frame to frame; the readout keeps naming the side it named first."""
+    from tui.widgets.sidelobe import SideLobeChoice
+    choice = SideLobeChoice()
+    shown = [choice.choose(_two_sided_tick(-13.3, -13.2, report_right=k % 2 == 0))[1]
+             for k in range(6)]
+    assert all(at is not None and at > 0 for at in shown), shown
+
+
+def test_side_lobe_direction_switches_when_the_other_side_is_clearly_higher() -> None:
+    from tui.widgets.sidelobe import SLL_HYSTERESIS_DB, SideLobeChoice
+    choice = SideLobeChoice()
+    choice.choose(_two_sided_tick(-13.3, -13.3, report_right=True))
+    sll, at = choice.choose(_two_sided_tick(-13.3 + 2 * SLL_HYSTERESIS_DB, -13.3,
+                                            report_right=False))
+    assert at == -47.4 and sll == pytest.approx(-13.3 + 2 * SLL_HYSTERESIS_DB)
+
+
+def test_key_bar_keeps_the_first_keys_and_the_help_key_when_short() -> None:
+    from tui.widgets.keybar import KeyItem, fit_items
+    items = [KeyItem(k, d, p) for k, d, p in
+             (("p", "pause", 5), ("r", "ref", 6), ("?", "help", 1), ("␣", "play", 0))]
+    assert fit_items(items, 80, items[2]) == items
+    kept = fit_items(items, len("? help ␣ play") + 1, items[2])
+    assert kept == [items[2], items[3]]  # priority kept, shown in binding order
+
+
+def test_sim_clock_runs_faster_by_its_factor() -> None:
+    from tui.speed_options import SimClock
+    wall = [100.0]
+    clock = SimClock(10.0, base=lambda: wall[0])
+    wall[0] = 102.5
+    assert clock() == pytest.approx(100.0 + 25.0)

@@ -28,14 +28,14 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
-from textual.widgets import Footer
 
 from stream.errors import UserError
 from stream.live import Driver, PlaybackDriver
 from stream.tick import Tick
 from tui.messages import DriverEnded, RecordingStarted, RecordingStopped
 from tui.screens import HelpScreen
-from tui.widgets.alarmlist import AlarmList
+from tui.widgets.alarmlist import AlarmHistory, AlarmList, history_row
+from tui.widgets.keybar import KeyBar, key_items
 from tui.widgets.polar import PolarPlot
 from tui.widgets.readout import Readout
 from tui.widgets.status import StatusInfo, StatusLine, fmt_bytes
@@ -62,6 +62,9 @@ _G_SEEK = Binding.Group("±10s", compact=True)
 _G_JUMP = Binding.Group("±1m", compact=True)
 _G_EVENT = Binding.Group("event", compact=True)
 
+#: Replay keys in the order the key bar keeps them when the width is short.
+REPLAY_KEY_ORDER: tuple[str, ...] = ("replay_pause", "slower", "seek", "next_event",
+                                     "prev_event")
 #: Actions that only make sense when replaying a session file.
 REPLAY_ACTIONS = frozenset({"replay_pause", "faster", "slower", "seek", "next_event",
                             "prev_event"})
@@ -90,6 +93,7 @@ class BeamOptions:
         run_driver: run the driver in this screen's worker; False when the caller runs
             it (a fleet screen keeps its streams running while this screen is closed).
         on_frame: called after each repaint (the app's garbage-collector pacing).
+        mode_note: said after the mode in the status line (e.g. "sim time 10×").
         exits_app: ``q`` quits the app (the single-stream app); otherwise it stops this
             screen's driver and closes the screen (a fleet's per-stream screen).
     """
@@ -103,6 +107,7 @@ class BeamOptions:
     wall_clock: Callable[[], float] = time.time
     run_driver: bool = True
     on_frame: Callable[[], None] | None = None
+    mode_note: str | None = None
     exits_app: bool = False
 
     def __post_init__(self) -> None:
@@ -115,6 +120,9 @@ class BeamOptions:
 class BeamScreen(Screen[None]):
     """One stream's beam screen.
 
+    Width and height classes (``-wide`` from 110 columns, ``-tall`` from 34 rows) let
+    the stylesheet give a large terminal's room to the readout and the alarms.
+
     ``BeamScreen(monitor, driver, options)``: ``monitor`` is the stream's
     :class:`~stream.monitor.Monitor`; ``driver`` (a :class:`stream.live.Driver`, or a
     :class:`stream.live.PlaybackDriver` for replay keys, or None) feeds it and runs in
@@ -123,6 +131,9 @@ class BeamScreen(Screen[None]):
     ``app.push_screen(BeamScreen(monitor, driver, BeamOptions(run_driver=False)))``;
     ``q`` then closes the screen (``exits_app=True`` makes it quit the app instead).
     """
+
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-tall")]
 
     BINDINGS = [
         Binding("p", "toggle_pause", "pause",
@@ -202,7 +213,8 @@ class BeamScreen(Screen[None]):
                 yield Readout(id="readout")
                 yield TrendPlot(id="trend")
                 yield AlarmList(id="alarms")
-        yield Footer(compact=True)
+                yield AlarmHistory(id="history")
+        yield KeyBar(id="keys")
 
     def on_mount(self) -> None:
         self.w_status = self.query_one(StatusLine)
@@ -215,6 +227,9 @@ class BeamScreen(Screen[None]):
         self.w_trace.border_title = "power vs bearing"
         self.w_trend.border_title = "peak bearing per sweep"
         self.w_alarms.border_title = "alarms"
+        self.w_history = self.query_one(AlarmHistory)
+        self.w_history.border_title = "alarm history"
+        self._fill_key_bar()
         self.monitor.event_sinks.append(self._on_event)
         if self.driver is not None and self.options.run_driver:
             self.run_worker(self._drive(), name="driver", group="driver", exclusive=True,
@@ -223,6 +238,15 @@ class BeamScreen(Screen[None]):
             self.set_interval(1.0 / self.options.refresh_hz, self.refresh_view,
                               name="refresh")
         self.refresh_view()
+
+    def _fill_key_bar(self) -> None:
+        """The key bar's items: in replay the playback keys come first, then help/quit."""
+        first = (REPLAY_KEY_ORDER if self.mode == "replay" else ()) + ("help", "quit_app")
+        items = key_items(self.BINDINGS, lambda a: self.check_action(a, ()) is not False,
+                          first)
+        bar = self.query_one(KeyBar)
+        bar.items = tuple(items)
+        bar.more = next((it for it in items if it.description == "help"), None)
 
     def on_unmount(self) -> None:
         self.stop()
@@ -267,7 +291,10 @@ class BeamScreen(Screen[None]):
             self._alarm_events.append(event)
 
     def _announce_alarms(self) -> None:
+        """Alarm events since the last refresh: into the history, then the bell."""
         events, self._alarm_events = self._alarm_events, []
+        for ev in events:
+            self.w_history.add_event(ev)
         if not events or not self.options.bell:
             return
         from tui.notify import should_ring
@@ -317,7 +344,9 @@ class BeamScreen(Screen[None]):
                 self._rec_size_at = now
         pos = self.playback.position if self.playback is not None else None
         return StatusInfo(
-            mode=self.mode + (" · ended" if self.driver_done and self.mode != "replay" else ""),
+            mode=self.mode + (f" · {self.options.mode_note}" if self.options.mode_note
+                              else "")
+            + (" · ended" if self.driver_done and self.mode != "replay" else ""),
             display_paused=self.display_paused, stalled_s=stalled,
             recording_path=rec_path, recording_bytes=self._rec_size,
             replay_t=pos[0] if pos else None, replay_start=pos[1] if pos else None,
@@ -406,8 +435,14 @@ class BeamScreen(Screen[None]):
             self.notify("No alarm rules configured: nothing to acknowledge.",
                         severity="warning")
             return
-        n = len(list(alarms.active()))
-        alarms.acknowledge()
+        active = {getattr(a, "key", None): a for a in alarms.active()}
+        n = len(active)
+        for key in alarms.acknowledge() or []:
+            a = active.get(key)
+            if a is not None:
+                self.w_history.add_row(history_row(
+                    self._pipeline_t(), "ack", a.rule, a.value, a.threshold, a.unit,
+                    getattr(a, "watch_deg", None)))
         self.w_alarms.show(alarms)
         self.notify(f"Acknowledged {n} alarm(s)." if n else "No active alarm.")
 

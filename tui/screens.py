@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 
+from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -86,6 +87,21 @@ def reflow(text: str) -> str:
     return "\n".join(out)
 
 
+def hanging(text: str) -> Table:
+    """The heading and the bullet paragraphs of ``text`` (after :func:`reflow`) as a
+    grid, so a bullet's continuation lines wrap under its text, not under the bullet."""
+    grid = Table.grid(padding=(0, 1))
+    grid.add_column(no_wrap=True)
+    grid.add_column()
+    for para in reflow(text).splitlines():
+        if para.startswith("•"):
+            grid.add_row("•", Text.from_markup(para[1:].strip()))
+        elif para.strip():
+            grid.add_row("", Text.from_markup(para))
+    grid.add_row("", "")
+    return grid
+
+
 class HelpScreen(ModalScreen[None]):
     """Explains every reading and key, with the safety cautions."""
 
@@ -109,14 +125,15 @@ class HelpScreen(ModalScreen[None]):
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="help-body"):
-            yield Static(reflow(SAFETY) + "\n", id="help-safety")
+            yield Static(hanging(SAFETY), id="help-safety")
             yield Static(reflow(READINGS), id="help-readings")
             if self._keys:
-                keys = Text()
-                keys.append("Keys\n", style="bold")
+                yield Static("\n[b]Keys[/b]", id="help-keys-title")
+                keys = Table.grid(padding=(0, 2))
+                keys.add_column(justify="right", style="bold", no_wrap=True)
+                keys.add_column()  # wraps under itself, not under the key
                 for k, d in self._keys:
-                    keys.append(f"  {k:>12}", style="bold")
-                    keys.append(f"  {d}\n")
+                    keys.add_row(k, d)
                 yield Static(keys, id="help-keys")
             yield Static("[i]Esc closes this page.  Demo data is invented.[/i]")
 

@@ -12,11 +12,13 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import dataclasses
 import os
 import shutil
 import tempfile
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -27,6 +29,7 @@ from stream.scenarios import SCENARIOS
 from stream.synth import SynthConfig, run_publisher
 from tui.cli import UsageError
 from tui.options import add_pipeline_arguments, add_screen_arguments
+from tui.speed_options import SimClock, add_speed_argument, speed_from_args, speed_note
 
 _D = SynthConfig()
 
@@ -82,6 +85,7 @@ def register(subparsers: Any) -> None:
                    help=f"measurement jitter, standard deviation in dB (default "
                         f"{_D.noise_db:g})")
     add_screen_arguments(p)
+    add_speed_argument(p)
     p.add_argument("--interval", type=float, default=0.1, metavar="S",
                    help="seconds between readouts of the pipeline (default 0.1)")
     add_pipeline_arguments(p)
@@ -95,6 +99,7 @@ class DemoPublisher:
     """The simulated publisher in a thread, on a private ipc endpoint."""
 
     config: SynthConfig
+    clock: Callable[[], float] = time.time
     tmpdir: str = ""
     endpoint: str = ""
     stop: threading.Event = field(default_factory=threading.Event)
@@ -109,7 +114,7 @@ class DemoPublisher:
 
         def main() -> None:
             try:
-                run_publisher(self.endpoint, self.config, self.stop,
+                run_publisher(self.endpoint, self.config, self.stop, clock=self.clock,
                               on_ready=lambda _addr: self.ready.set())
             except BaseException as exc:  # reported by start()/close()
                 self.error = exc
@@ -246,6 +251,8 @@ def run(args: argparse.Namespace) -> int:
     if not args.interval > 0:
         raise UsageError(f"--interval must be positive, got {args.interval}")
     config = synth_config(args)
+    speed = speed_from_args(args)
+    clock = SimClock(speed)  # one clock for publisher, receiver and readout
     monitor = build_demo_monitor(args, config)
     hook = None
     with contextlib.suppress(ImportError):
@@ -253,14 +260,15 @@ def run(args: argparse.Namespace) -> int:
         hook = alarm_hook_from_args(args)
     if hook is not None:
         monitor.event_sinks.append(hook)
-    publisher = DemoPublisher(config)
+    publisher = DemoPublisher(config, clock=clock)
     endpoint = publisher.start()
     source = None
     try:
-        source = ZmqSource(endpoint, stale_after_s=3.0)
-        driver = LiveDriver(source, monitor, interval_s=args.interval)
-        options = beam_options_from_args(
-            args, "demo", recorder_factory=_recorder_factory(args, monitor, config))
+        source = ZmqSource(endpoint, stale_after_s=3.0, clock=clock)
+        driver = LiveDriver(source, monitor, interval_s=args.interval, clock=clock)
+        options = dataclasses.replace(beam_options_from_args(
+            args, "demo", recorder_factory=_recorder_factory(args, monitor, config)),
+            wall_clock=clock, mode_note=speed_note(speed))
         return run_app(monitor, driver, options, title=f"lobewatch demo · {config.scenario}")
     finally:
         if source is not None:

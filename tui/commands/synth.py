@@ -17,6 +17,7 @@ from tui.curve_options import add_curve_arguments, check_listen, curve_from_args
 from tui.fleet_synth import add_array_arguments, run_arrays
 from tui.iq_options import add_iq_arguments, run_iq_synth
 from tui.options import taper_help
+from tui.speed_options import SimClock, add_speed_argument, speed_from_args
 
 _D = SynthConfig()
 
@@ -98,6 +99,7 @@ def register(subparsers: Any) -> None:
                    help=f"random seed for noise and fading (default {_D.seed})")
     add_array_arguments(p)  # several arrays on several ports (tui/fleet_synth.py)
     add_iq_arguments(p, role="synth")  # --iq: simulated radio (tui/iq_options.py)
+    add_speed_argument(p)  # --speed FACTOR: faster simulated time (tui/speed_options.py)
     p.set_defaults(func=run)
 
 
@@ -155,9 +157,9 @@ def run(args: argparse.Namespace) -> int:
               file=sys.stderr, flush=True)
 
     try:
-        sent = run_arrays(args, config, stop) if args.arrays else run_publisher(
+        sent = run_arrays(args, config, stop, curve=curve) if args.arrays else run_publisher(
             args.endpoint, config, stop, duration_s=args.duration, on_ready=ready,
-            curve=curve)
+            curve=curve, clock=SimClock(speed_from_args(args)))
     except UserError:
         raise
     finally:

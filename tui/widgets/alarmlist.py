@@ -13,7 +13,7 @@ from collections.abc import Sequence
 from typing import Any
 
 from rich.text import Text
-from textual.widgets import Static
+from textual.widgets import RichLog, Static
 
 #: Short, fixed-width severity tags, most severe first (ITU-T X.733 values).
 SEVERITY_TAGS: dict[str, str] = {
@@ -53,6 +53,18 @@ def _num(v: Any, unit: str) -> str:
     return "—"
 
 
+def clock_text(t: Any) -> str:
+    """The one time format of the alarm rows: local HH:MM:SS."""
+    if not isinstance(t, (int, float)) or not math.isfinite(float(t)) or not t:
+        return "--:--:--"
+    return time.strftime("%H:%M:%S", time.localtime(float(t)))
+
+
+def value_vs_limit(value: Any, limit: Any, unit: str) -> str:
+    """``value vs limit unit``: the reading, its threshold, the unit once."""
+    return f"{_num(value, '')} vs {_num(limit, '')}{unit}"
+
+
 def alarm_variants(status: Any) -> tuple[str, list[str], bool]:
     """(severity, texts from longest to shortest, acknowledged) of an alarm status."""
     severity = str(_get(status, "severity", default="indeterminate")).lower()
@@ -63,21 +75,17 @@ def alarm_variants(status: Any) -> tuple[str, list[str], bool]:
     unit_raw = _get(status, "unit")
     unit = UNIT_TEXT.get(str(unit_raw), f" {unit_raw}") if unit_raw is not None \
         else RULE_UNITS.get(rule, "")
-    value = _num(_get(status, "value"), unit)
-    threshold = _num(_get(status, "threshold"), unit)
-    lt = time.localtime(float(since)) if since else None
-    hms = time.strftime("%H:%M:%S", lt) if lt else "--:--:--"
-    hm = time.strftime("%H:%M", lt) if lt else "--:--"
+    hms = clock_text(since)
     watch = _get(status, "watch_deg")
     where = f"@{float(watch):+.0f}°" if watch is not None else ""
     name, short = rule + where, SHORT_RULES.get(rule, rule) + where
     note = f" ({state})" if state and state not in ("raised", "active") else ""
+    reading = value_vs_limit(_get(status, "value"), _get(status, "threshold"), unit)
     texts = [
-        f"{hms} {name} {value} vs {threshold}{note}",
-        f"{hm} {name} {value} vs {threshold}{note}",
-        f"{hm} {short} {value} vs {threshold}{note}",
-        f"{hm} {short} {value}/{threshold}{note}",
-        f"{short} {value}/{threshold}",
+        f"{hms} {name} {reading}{note}",
+        f"{hms} {short} {reading}{note}",
+        f"{short} {reading}{note}",
+        f"{short} {reading}",
     ]
     return severity, texts, ack
 
@@ -101,10 +109,17 @@ class AlarmList(Static):
                  classes: str | None = None) -> None:
         super().__init__("", name=name, id=id, classes=classes)
         self._last_key: object = None
+        self._engine: Any = False  # not shown yet
         self.lines: list[str] = []
+
+    def on_resize(self) -> None:
+        """Fit the rows to the new width (longer forms when there is room)."""
+        if self._engine is not False:
+            self.show(self._engine)
 
     def show(self, engine: Any | None) -> None:
         """Redraw from the engine's active alarms (``None``: no rules configured)."""
+        self._engine = engine
         if engine is None:
             self._render_lines([], "no alarm rules configured")
             return
@@ -148,3 +163,51 @@ _SEV_STYLE: dict[str, str] = {
     "critical": "reverse red", "major": "red", "minor": "yellow", "warning": "yellow",
     "indeterminate": "", "cleared": "green",
 }
+
+
+#: Words of the alarm history for each transition of an alarm event.
+TRANSITION_WORDS: dict[str, str] = {
+    "raise": "RAISED", "clear": "CLEARED", "escalate": "WORSE", "deescalate": "EASED",
+    "ack": "ACKED",
+}
+#: Rows kept in the alarm history.
+HISTORY_ROWS = 500
+
+
+def history_row(t: float, transition: str, rule: str, value: Any, threshold: Any,
+                unit_raw: Any, watch_deg: Any = None) -> str:
+    """One history row: time, what happened, rule, ``value vs limit unit``."""
+    unit = UNIT_TEXT.get(str(unit_raw), f" {unit_raw}") if unit_raw is not None \
+        else RULE_UNITS.get(rule, "")
+    where = f"@{float(watch_deg):+.0f}°" if watch_deg is not None else ""
+    word = TRANSITION_WORDS.get(transition, transition.upper())
+    return (f"{clock_text(t)} {word:<7} {rule}{where} "
+            f"{value_vs_limit(value, threshold, unit)}")
+
+
+class AlarmHistory(RichLog):
+    """Every alarm raised, acknowledged and cleared, newest at the bottom; scrolls
+    (mouse wheel; it takes no focus, so the screen's keys stay the screen's)."""
+
+    can_focus = False
+
+    DEFAULT_CSS = """
+    AlarmHistory { height: 1fr; min-height: 3; background: $background; }
+    """
+
+    def __init__(self, *, name: str | None = None, id: str | None = None,
+                 classes: str | None = None) -> None:
+        super().__init__(max_lines=HISTORY_ROWS, wrap=False, markup=False, name=name,
+                         id=id, classes=classes)
+        self.rows: list[str] = []
+
+    def add_event(self, event: Any) -> None:
+        """Add a monitor alarm event (``kind == "alarm"``)."""
+        d = event.data
+        self.add_row(history_row(event.t, str(d.get("transition", "?")),
+                                 str(d.get("rule", "?")), d.get("value"),
+                                 d.get("threshold"), d.get("unit"), d.get("watch_deg")))
+
+    def add_row(self, row: str) -> None:
+        self.rows = (self.rows + [row])[-HISTORY_ROWS:]
+        self.write(row)

@@ -95,7 +95,7 @@ def radial_fraction(rel_db: np.ndarray, scale: str, floor_db: float) -> np.ndarr
 
 
 def _signed(angle: float) -> str:
-    return "0°" if angle == 0 else (f"{angle:+.0f}" if abs(angle) < 180 else "180")
+    return "0°" if angle == 0 else (f"{angle:+.0f}" if abs(angle) < 180 else "±180")
 
 
 def break_gaps(angle_deg: np.ndarray, values: np.ndarray, closed: bool
@@ -164,8 +164,7 @@ class PolarPlot(CanvasWidget):
         self.geometry = geo
         floor_db = -40.0 if geo.radius >= 24 else -30.0
         self._draw_grid(canvas, geo, floor_db)
-        title = "polar · " + ("dB" if self.scale == "db" else "linear")
-        canvas.text(0, 0, title, "polar--title")
+        self._draw_title(canvas)
         if tick is None or tick.angle_deg.size < 2 or tick.metrics.peak_angle_deg is None:
             msg = "waiting for a beam…"
             canvas.text(canvas.width // 2, int(geo.cy // 4) - max(1, int(geo.radius // 8)),
@@ -199,6 +198,14 @@ class PolarPlot(CanvasWidget):
         col, row = geo.cell_of(peak, 1.0)
         canvas.text(col, row, PEAK_GLYPH, "polar--peak")
 
+    def _draw_title(self, canvas: BrailleCanvas) -> None:
+        """Top-left title, in the longest form that leaves a gap before any label."""
+        name = "dB" if self.scale == "db" else "linear"
+        for title in (f"polar · {name}", name):
+            if canvas.text_free(0, 0, len(title) + 1):
+                canvas.text(0, 0, title, "polar--title")
+                return
+
     def _trace_radius(self, rel_db: np.ndarray, floor_db: float) -> np.ndarray:
         """Radius fractions of a trace; on the dB scale, points under the floor break
         the line instead of all piling into the centre (noise there is unreadable)."""
@@ -220,9 +227,15 @@ class PolarPlot(CanvasWidget):
         ops: list[tuple] = []
 
         def put(col: int, row: int, text: str, style: str, align: str = "left") -> bool:
-            ok = canvas.text(col, row, text, style, align=align)
+            # as a left-aligned start column, moved inside the canvas when it overhangs
+            n = len(text)
+            col = col - n + 1 if align == "right" else (col - n // 2 if align == "center"
+                                                         else col)
+            col = min(max(col, 0), canvas.width - n)
+            row = min(max(row, 0), canvas.height - 1)
+            ok = canvas.text_free(col, row, n) and canvas.text(col, row, text, style)
             if ok:
-                ops.append((col, row, text, style, align))
+                ops.append((col, row, text, style, "left"))
             return ok
 
         grid = canvas.layer("polar--grid")
@@ -259,9 +272,15 @@ class PolarPlot(CanvasWidget):
                 put(col, row, text, "polar--label", align="right")
             else:
                 put(col, row, text, "polar--label")
+        unit = "dB" if self.scale == "db" else "lin"
+        if not geo.half:
+            # full circle: the trace fills the inside, so the rings are named in a
+            # legend on the bottom-left corner instead of on the axis
+            ring = "10 dB/ring" if self.scale == "db" else "¼/ring"
+            put(0, canvas.height - 1, f"○ {ring}", "polar--label")
+            return
         # ring labels: below the left half of the horizontal axis
         row = int(geo.cy) // 4 + 1
-        unit = "dB" if self.scale == "db" else "lin"
         free_from = 0
         placed = False
         for f, text in zip(fracs, labels, strict=False):

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from rich.segment import Segment
 from rich.style import Style
@@ -22,6 +22,7 @@ from textual.widget import Widget
 from textual.widgets import Digits, Static
 
 from stream.tick import Tick
+from tui.widgets.sidelobe import SideLobeChoice
 
 DASH = "—"
 #: Characters of the big bearing figure ("+123.4"), padded so its width never changes.
@@ -219,6 +220,7 @@ class Readout(Widget):
                  classes: str | None = None) -> None:
         super().__init__(name=name, id=id, classes=classes)
         self._last: dict[str, str] = {}
+        self._side_lobe = SideLobeChoice()
 
     def compose(self) -> ComposeResult:
         with Horizontal(id="rd-head"):
@@ -261,6 +263,10 @@ class Readout(Widget):
     def watch_tick(self, tick: Tick | None) -> None:
         if tick is None or not self.is_mounted:
             return
+        sll, sll_at = self._side_lobe.choose(tick)
+        if (sll, sll_at) != (tick.metrics.sll_db, tick.metrics.sll_angle_deg):
+            tick = replace(tick, metrics=replace(tick.metrics, sll_db=sll,
+                                                 sll_angle_deg=sll_at))
         m = tick.metrics
         peak = m.peak_angle_deg
         # fixed width (sign, three digits, one decimal): a bearing that gains or loses a

@@ -121,7 +121,7 @@ class TracePlot(CanvasWidget):
         while a <= a_hi + 1e-9:
             x = float(xd(np.array(a)))
             canvas.vline(grid, x, py0, py1, dash=(1, 7))
-            text = f"{a:+.0f}" if a else "0"
+            text = (f"{a:+.0f}" if a else "0") + "°"  # the axis unit on every label
             col = int(np.rint(x)) // 2 - len(text) // 2
             col = min(max(col, x0_col), w - len(text))
             if col >= free and canvas.text(col, h - 1, text, "trace--label"):

@@ -20,6 +20,13 @@ MIN_WINDOW_S = 60.0
 MIN_SPAN_DEG = 4.0
 
 
+def trend_label(value_deg: float, step_deg: float) -> str:
+    """Axis label: signed whole degrees (tenths under a 1-degree step), never "-0"."""
+    digits = 0 if step_deg >= 1 else 1
+    v = round(value_deg, digits) + 0.0  # -0.0 + 0.0 is +0.0
+    return f"{v:+.{digits}f}°" if v else "0°"
+
+
 class TrendPlot(CanvasWidget):
     """Sweep peak angle versus time.  Feed it with :meth:`show`."""
 
@@ -115,7 +122,7 @@ class TrendPlot(CanvasWidget):
             return py0 + (hi - np.asarray(v)) / (hi - lo) * (py1 - py0)
 
         grid = canvas.layer("trend--grid")
-        step = nice_step(hi - lo, max(1, min(3, plot_rows)))
+        step = nice_step(hi - lo, max(2, min(4, plot_rows // 2)))
         v = np.ceil(lo / step) * step
         free_rows: set[int] = set()
         while v <= hi + 1e-9:
@@ -123,8 +130,8 @@ class TrendPlot(CanvasWidget):
             canvas.hline(grid, y, px0, px1, dash=(1, 5))
             row = int(np.rint(y)) // 4
             if row not in free_rows and row < plot_rows:
-                canvas.text(lab - 1, row, f"{v:+.0f}°" if step >= 1 else f"{v:+.1f}",
-                            "trend--label", align="right")
+                canvas.text(lab - 1, row, trend_label(v, step), "trend--label",
+                            align="right")
                 free_rows.add(row)
             v += step
         if tick.target_deg is not None:
