@@ -123,7 +123,7 @@ class FleetCollector(Collector):
         for st in self._stations():
             name = st.name
             reading = st.reading
-            up.add_metric([name], 1.0 if st.state == "receiving" else 0.0)
+            up.add_metric([name], 1.0 if st.state in ("receiving", "restarted") else 0.0)
             if reading is None:
                 continue
             tick = reading.tick

@@ -19,6 +19,7 @@ STATE_GLYPHS: dict[str, tuple[str, str]] = {
     "waiting": ("○", "italic"),
     "receiving": ("●", "bold green"),
     "stale": ("◌", "bold reverse yellow"),
+    "restarted": ("↻", "bold yellow"),  # receiving again from a new publisher
     "ended": ("■", "bold"),
 }
 
