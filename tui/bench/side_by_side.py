@@ -156,8 +156,8 @@ def _replay(quick: bool, runs: int, progress: Progress) -> dict[str, float]:
     out: dict[str, float] = {}
     with tempfile.TemporaryDirectory(prefix="lobewatch-bench-") as d:
         for label, rate, per_batch, seconds in (
-                ("10k", 10_000.0, 100, 20.0 if quick else 120.0),
-                ("1m", 1_000_000.0, 1000, 1.0 if quick else 5.0)):
+                ("10k", 10_000.0, 100, 10.0 if quick else 120.0),
+                ("1m", 1_000_000.0, 1000, 0.5 if quick else 5.0)):
             path = os.path.join(d, f"{label}.lwsession")
             n = int(rate * seconds)
             progress(f"side by side: replay, a {n:,}-sample session at {rate:,.0f} "
@@ -225,7 +225,7 @@ def run_group(plan: Any, quick: bool, progress: Progress) -> dict[str, dict[str,
     """All side-by-side figures (one publisher process for the network ones)."""
     from tui.bench.ingest import LATENCY_BATCH, Publisher, tcp_endpoint
     runs = 1 if quick else 3
-    seconds = 1.5 if quick else 3.0
+    seconds = 1.0 if quick else 3.0
     monitor()  # imports done before anything is timed
     progress("side by side: measure() and the scipy baseline on 3,600 points")
     met = _metrics(plan.metrics_runs)
