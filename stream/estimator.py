@@ -244,6 +244,7 @@ class RollingPattern:
         self._history: deque[SweepRecord] = deque(maxlen=self.config.history)
         self._sweep_count = 0
         self._samples = 0
+        self._spread_cache: tuple[tuple[int, int, int], float | None] | None = None
 
     @property
     def samples(self) -> int:
@@ -270,13 +271,18 @@ class RollingPattern:
         a peak (circular-safe, see :func:`circular_std_deg`); ``None`` when fewer than 2."""
         if n < 2:
             return None
+        key = (self._sweep_count, len(self._history), n)
+        if self._spread_cache is not None and self._spread_cache[0] == key:
+            return self._spread_cache[1]  # no sweep ended since: the same answer
         peaks: list[float] = []
         for rec in reversed(self._history):
             if rec.peak_angle_deg is not None:
                 peaks.append(rec.peak_angle_deg)
                 if len(peaks) == n:
                     break
-        return circular_std_deg(peaks)
+        spread = circular_std_deg(peaks)
+        self._spread_cache = (key, spread)
+        return spread
 
     # -- data in: the one place a fold path is chosen ---------------------------------
     def _fold_path_allowed(self, path: str) -> bool:
