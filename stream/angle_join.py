@@ -269,7 +269,7 @@ def estimate_lag(block_t: np.ndarray, power_db: np.ndarray, tel_t: np.ndarray,
     rate_t = 0.5 * (tel_t[1:] + tel_t[:-1])
     ests: list[float] = []
     rates: list[float] = []
-    complete = runs[:-1]  # the last run may still be growing
+    complete = runs[:-1][-(max_pairs + 1):]  # the last run may still be growing
     for (ta0, ta1, da), (tb0, tb1, db) in zip(complete[:-1], complete[1:], strict=True):
         if da == db:
             continue

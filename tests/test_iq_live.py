@@ -24,8 +24,9 @@ N_ELEMENTS = 8
 PEAK_DEG = 7.3
 LAG_S = 0.040
 #: The test's clock runs this many times faster than the wall clock (publisher and
-#: receiver share it), so 24 simulated seconds take 6.
-SPEED = 4.0
+#: receiver share it), so 26 simulated seconds take 13.  Receive delays are stretched by
+#: the same factor, so it stays small (a busy shared machine delays frames by ms).
+SPEED = 2.0
 
 
 def brute_force_lin(angle_deg: np.ndarray) -> np.ndarray:
@@ -121,8 +122,8 @@ def test_swept_tone_with_lagging_angles_gives_the_true_beam() -> None:
     assert est.pairs >= 2 and est.sigma_s is not None
     assert est.rate_dps == pytest.approx(30.0, rel=0.02)
     m = tick.metrics
-    assert m.peak_angle_deg == pytest.approx(PEAK_DEG, abs=0.3)
-    assert m.hpbw_deg == pytest.approx(true_hpbw_deg(), abs=0.5)
+    assert m.peak_angle_deg == pytest.approx(PEAK_DEG, abs=0.3), (m, lag_text(est))
+    assert m.hpbw_deg == pytest.approx(true_hpbw_deg(), abs=0.5), (m, lag_text(est))
     assert not tick.calibrated  # no --cal-db: the readout says dB, not dBm
     assert src.stats(clock()).messages > 0 and lags
     info = src.info()

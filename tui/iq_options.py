@@ -173,10 +173,12 @@ def iq_source_from_args(args: argparse.Namespace, on_lag: Any = None) -> Any:
         raise UsageError(str(exc)) from None
 
 
-def lag_event(t: float, est: LagEstimate) -> Event:
-    """The ``radio`` event that carries a new lag estimate (headless, records, replay)."""
+def lag_event(t: float, est: LagEstimate, noise_floor_db: float | None = None) -> Event:
+    """The ``radio`` event that carries a new lag estimate (headless, records), with the
+    channel's noise floor at that moment when a channel is set."""
     from stream.iq_source import lag_text
-    return Event(t, "radio", {**est.to_dict(), "text": lag_text(est)})
+    return Event(t, "radio", {**est.to_dict(), "noise_floor_db": noise_floor_db,
+                              "text": lag_text(est)})
 
 
 def run_iq_live(args: argparse.Namespace) -> int:
@@ -191,7 +193,8 @@ def run_iq_live(args: argparse.Namespace) -> int:
         raise UsageError("--force only applies with --record FILE")
     monitor = live.build_pipeline(args)
     monitor.bearing = bearing_from_args(args)
-    source = iq_source_from_args(args, on_lag=lambda t, est: monitor.emit(lag_event(t, est)))
+    source = iq_source_from_args(
+        args, on_lag=lambda t, est: monitor.emit(lag_event(t, est, source.noise_floor_db)))
     fail_on = live._fail_on(args)
     hook = live._hook(args)
     if hook is not None:
