@@ -108,6 +108,7 @@ def _free_port() -> int:
         return s.getsockname()[1]
 
 
+@pytest.mark.timeout(300)  # process start-up is slow on a loaded machine
 def test_live_headless_prints_the_waiting_hint(tmp_path):
     """Against an address nobody publishes on, headless prints a status line with the
     hint (then stops on SIGINT); bounded, loopback only."""

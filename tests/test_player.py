@@ -263,6 +263,7 @@ async def test_screen_keys_drive_the_player(live_session):
     player.close()
 
 
+@pytest.mark.timeout(600)  # four processes; slow on a loaded machine
 def test_cli_live_record_then_headless_replay_prints_the_live_lines(tmp_path):
     """synth -> live --headless --record -> replay --headless (twice), as a user runs it."""
     import os
