@@ -289,15 +289,18 @@ def format_results(results: list[tuple[PatternInput, Assessment, dict[str, Any]]
         out.append(f"{inp.path}: {asmt.verdict.upper()} ({asmt.verdict_reason})")
         if asmt.criteria:
             rows = [["criterion", "measured", "limit", "margin", "result", "note"]]
-            rows += [[c.name, _f(c.measured), c.limit_text, _f(c.margin, signed=True),
+            rows += [[c.name, _f(c.measured) + (f" {c.unit}" if c.measured is not None else ""),
+                      c.limit_text,
+                      _f(c.margin, signed=True) + (f" {c.unit}" if c.margin is not None else ""),
                       c.result, c.reason] for c in asmt.criteria]
             out.append(_grid(rows))
         if asmt.fit is not None:
             f = asmt.fit
             u = f.uncertainty
             out.append(f"  fit: steering {f.steer_deg:.2f} ± {u.get('steer_deg', 0):.2f} deg, "
-                       f"q {f.element_exp:.2f} ± {u.get('element_exp', 0):.2f}, gain "
-                       f"{f.gain_db:.2f} dB, residual {f.residual_rms_db:.2f} dB rms")
+                       f"q {f.element_exp:.2f} ± {u.get('element_exp', 0):.2f}, peak "
+                       f"{f.gain_db:.2f} {'dBm' if inp.calibrated else 'dB'}, "
+                       f"residual {f.residual_rms_db:.2f} dB rms")
         if asmt.columns is not None:
             amps = " ".join(f"{a:.2f}" for a in asmt.columns.amplitudes)
             out.append(f"  columns: {asmt.columns.summary()} (relative amplitudes {amps})")
