@@ -32,7 +32,7 @@ from textual.screen import Screen
 from stream.errors import UserError
 from stream.live import Driver, PlaybackDriver
 from stream.tick import Tick
-from tui.messages import DriverEnded, RecordingStarted, RecordingStopped
+from tui.messages import DriverEnded, RecordingStarted, RecordingStopped, RecordWritten
 from tui.screens import HelpScreen
 from tui.widgets.alarmlist import AlarmHistory, AlarmList, history_row
 from tui.widgets.keybar import KeyBar, key_items
@@ -90,6 +90,7 @@ class BeamOptions:
         recorder: a recording already running (``--record``), stopped by the record key.
         clock: monotonic seconds, for stall detection and throttling (tests inject one).
         wall_clock: Unix seconds, for user events before the first tick.
+        record_dir: folder for commissioning records (``k``); None: the sessions folder.
         run_driver: run the driver in this screen's worker; False when the caller runs
             it (a fleet screen keeps its streams running while this screen is closed).
         on_frame: called after each repaint (the app's garbage-collector pacing).
@@ -106,6 +107,7 @@ class BeamOptions:
     clock: Callable[[], float] = time.monotonic
     wall_clock: Callable[[], float] = time.time
     run_driver: bool = True
+    record_dir: str | None = None
     on_frame: Callable[[], None] | None = None
     mode_note: str | None = None
     exits_app: bool = False
@@ -153,6 +155,11 @@ class BeamScreen(Screen[None]):
                 tooltip="acknowledge the active alarms (they stay until they clear)"),
         Binding("w", "toggle_recording", "rec",
                 tooltip="start / stop recording a session file"),
+        Binding("e", "explain", "why",
+                tooltip="explain every dash in the readout (what the data cannot tell)"),
+        Binding("k", "write_record", "report",
+                tooltip="write a commissioning record of the current pattern (record.html "
+                        "and its data) into a new folder under the sessions folder"),
         Binding("question_mark", "help", "help", key_display="?",
                 tooltip="this help page"),
         Binding("q", "quit_app", "quit", tooltip="quit"),
@@ -530,6 +537,53 @@ class BeamScreen(Screen[None]):
             self.notify(f"Recording stopped: {message.path} "
                         f"({fmt_bytes(message.size_bytes)}).")
         self.refresh_view()
+
+    # -- explaining the readout and writing a commissioning record ------------------------
+    def action_explain(self) -> None:
+        tick = self.monitor.last_tick
+        if tick is None:
+            self.notify("No readout yet: waiting for samples.", severity="warning")
+            return
+        from tui.widgets.readout import undetermined
+        missing = undetermined(tick)
+        notes = [f"{label}: {reason}" for label, reason in missing]
+        if tick.provisional:
+            notes.insert(0, "provisional: no complete sweep seen yet")
+        if tick.source.state == "stale":
+            notes.insert(0, "STALE: no samples for a while; values are the last ones")
+        self.notify("\n".join(notes) if notes else "Every value is determined.",
+                    title="why", timeout=20)
+
+    def action_write_record(self) -> None:
+        tick = self.monitor.last_tick
+        if tick is None or tick.metrics.peak_angle_deg is None:
+            self.notify("No beam measured yet: nothing to record.", severity="warning")
+            return
+        from replay.session import default_sessions_dir
+        base = self.options.record_dir or str(default_sessions_dir())
+        stamp = time.strftime("%Y%m%d-%H%M%S", time.localtime(tick.t))
+        out_dir = f"{base}/record-{stamp}"
+        self.notify(f"Writing a commissioning record to {out_dir} …", timeout=4)
+        self._write_record(tick, out_dir)
+
+    @work(thread=True, group="record", exit_on_error=False)
+    def _write_record(self, tick: Tick, out_dir: str) -> None:
+        from replay.record import write_record_from_tick
+        meta = {"source": f"{self.mode} pattern on screen"}
+        try:
+            path = write_record_from_tick(tick, self.monitor.model, out_dir, meta)
+        except UserError as exc:
+            self.post_message(RecordWritten(None, str(exc)))
+        except Exception as exc:
+            self.post_message(RecordWritten(None, f"{type(exc).__name__}: {exc}"))
+        else:
+            self.post_message(RecordWritten(path))
+
+    def on_record_written(self, message: RecordWritten) -> None:
+        if message.error:
+            self.notify(message.error, title="record", severity="error", timeout=10)
+        else:
+            self.notify(f"Commissioning record written: {message.path}", timeout=15)
 
     # -- replay controls (the driver is a session player) -------------------------------
     def _player(self) -> PlaybackDriver | None:

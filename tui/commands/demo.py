@@ -237,7 +237,8 @@ def _recorder_factory(args: argparse.Namespace, monitor: Monitor,
         with contextlib.suppress(ImportError, AttributeError):
             from tui.options import settings_record
             meta["settings"] = settings_record(args, monitor)
-        path = time.strftime("lobewatch-demo-%Y%m%d-%H%M%S.lwsession")
+        from replay.session import new_session_path  # the sessions folder, not the cwd
+        path = str(new_session_path(stem="lobewatch-demo"))
         return Recorder(path, meta).attach(monitor)
 
     return new_recording

@@ -41,6 +41,35 @@ class Field:
     text: Callable[[Tick], str]
 
 
+def _sigma(tick: Tick, key: str) -> float | None:
+    """The metric's one-sigma uncertainty when the pipeline gave one."""
+    u = getattr(tick.metrics, "uncertainty", None) or {}
+    v = u.get(key)
+    return float(v) if isinstance(v, (int, float)) and math.isfinite(v) else None
+
+
+def fmt_sigma(value: float | None, sigma: float | None, unit: str, digits: int = 1,
+              signed: bool = False) -> str:
+    """``value±sigma unit`` (one sigma), or :func:`fmt` without a sigma."""
+    text = fmt(value, "", digits, signed)
+    if text == DASH:
+        return DASH
+    if sigma is not None:
+        text += f"±{sigma:.{digits}f}"
+    return text + unit
+
+
+def fit_value(text: str, width: int) -> str:
+    """``text`` cut to ``width``; a ``±sigma`` part goes first so the value stays whole."""
+    if len(text) <= width:
+        return text
+    if "±" in text:
+        head, _, rest = text.partition("±")
+        unit = rest.lstrip("0123456789.")
+        text = head + unit
+    return text[:width]
+
+
 def _unit_db(tick: Tick) -> str:
     return " dBm" if tick.calibrated else " dB"
 
@@ -48,7 +77,7 @@ def _unit_db(tick: Tick) -> str:
 #: The label/value pairs of the grid, in reading order (two pairs per row).
 FIELDS: tuple[Field, ...] = (
     Field("hpbw", "HPBW", "hpbw_deg", "half-power (-3 dB) beamwidth",
-          lambda t: fmt(t.metrics.hpbw_deg, "°")),
+          lambda t: fmt_sigma(t.metrics.hpbw_deg, _sigma(t, "hpbw_deg"), "°")),
     Field("bw10", "−10dB", "bw10_deg", "beamwidth between the -10 dB points",
           lambda t: fmt(t.metrics.bw10_deg, "°")),
     Field("fnbw", "FNBW", "fnbw_deg", "width between the first nulls either side of the peak",
@@ -56,7 +85,7 @@ FIELDS: tuple[Field, ...] = (
     Field("fb", "F/B", "front_to_back_db", "front-to-back ratio (needs data behind the beam)",
           lambda t: fmt(t.metrics.front_to_back_db, " dB")),
     Field("sll", "SLL", "sll_db", "highest side lobe relative to the peak",
-          lambda t: fmt(t.metrics.sll_db, " dB")),
+          lambda t: fmt_sigma(t.metrics.sll_db, _sigma(t, "sll_db"), " dB")),
     Field("slla", "at", "sll_angle_deg", "bearing of the highest side lobe",
           lambda t: fmt(t.metrics.sll_angle_deg, "°", signed=True)),
     Field("pwr", "peak", "peak_power_db", "power at the peak (dBm if calibrated, else dB)",
@@ -159,7 +188,7 @@ class MetricGrid(Widget):
             f = self.fields[i]
             vw = pw - LABEL_W
             segs.append(Segment(f.label[:LABEL_W - 1].ljust(LABEL_W), lab))
-            segs.append(Segment(self.texts[f.id][:vw].ljust(vw), val))
+            segs.append(Segment(fit_value(self.texts[f.id], vw).ljust(vw), val))
             if col == 0:
                 segs.append(Segment(" ", base))
         strip = Strip(segs).adjust_cell_length(width, base)
@@ -211,6 +240,7 @@ class Readout(Widget):
     Readout Digits { width: auto; }
     Readout #rd-side { width: 1fr; padding-left: 1; }
     Readout Static { height: 1; text-wrap: nowrap; text-overflow: ellipsis; }
+    Readout #rd-why, Readout #rd-extra { color: $text-muted; display: none; }
     """
 
     #: The readout shown (a Tick holds arrays, so every assignment counts as a change).
@@ -238,8 +268,12 @@ class Readout(Widget):
                 yield Static(DASH, id="rd-offset", classes="rd-value").with_tooltip(
                     "offset = peak_angle_deg - target_deg")
         yield MetricGrid(FIELDS, id="rd-grid")
+        yield Static("", id="rd-why", classes="rd-value").with_tooltip(
+            "why a value shows a dash (press e for every reason)")
         yield Static(DASH, id="rd-source", classes="rd-value").with_tooltip(
             "state: source state (waiting, receiving, stale, ended)")
+        yield Static("", id="rd-extra", classes="rd-value").with_tooltip(
+            "compass bearing of the peak (when set) and the column diagnosis (with a model)")
 
     # -- updates -----------------------------------------------------------------------
     def _set(self, wid: str, text: str, tooltip: str | None = None) -> None:
@@ -274,8 +308,22 @@ class Readout(Widget):
         big = fmt(peak, "", 1, signed=True) if peak is not None else "--"
         self._set("rd-digits", big.rjust(BIG_CHARS))
         spread = tick.peak_angle_spread_deg
-        self._set("rd-spread", f"±{spread:.2f}° over sweeps" if spread is not None
-                  else "± — over sweeps")
+        stale = tick.source.state == "stale"
+        sigma = _sigma(tick, "peak_angle_deg")
+        if stale:
+            age = tick.age_s if tick.age_s is not None else (
+                tick.t - tick.last_sample_t if tick.last_sample_t is not None else None)
+            head = "STALE" + (f" · {age:.0f} s old" if age is not None else "")
+        elif tick.provisional:
+            head = "provisional · no full sweep yet"
+        elif spread is not None:
+            head = f"±{spread:.2f}° over sweeps" + (f" σ{sigma:.2f}°" if sigma else "")
+        else:
+            head = "± — over sweeps"
+        self._set("rd-spread", head)
+        self.query_one("#rd-digits").set_class(stale, "-stale")
+        self.query_one("#rd-digits").set_class(tick.provisional and not stale,
+                                               "-provisional")
         if tick.target_deg is not None:
             tol = tick.tolerance_deg
             self._set("rd-target", f"tgt {fmt(tick.target_deg, '°', 1, signed=True)}"
@@ -296,9 +344,50 @@ class Readout(Widget):
             text = f.text(tick)
             self._last[f"rd-v-{f.id}"] = text
             grid.set_value(f.id, text, m.reasons.get(f.key) if text == DASH else None)
+        for wid, text in (("rd-why", why_line(tick, grid.fields)),
+                          ("rd-extra", extra_line(tick))):
+            self._set(wid, text)
+            w = self.query_one(f"#{wid}")
+            if w.display != bool(text):
+                w.display = bool(text)  # a row only when there is something to say
         self._set("rd-source", f"source {tick.source.state}"
                   + (f" · {fmt_count(tick.samples)} samples" if tick.samples else ""))
         src = self.query_one("#rd-source")
         src.set_class(tick.source.state == "stale", "-stale")
         off_w = self.query_one("#rd-offset")
         off_w.set_class(self._last.get("rd-offset", "").endswith("OUT"), "-out")
+
+
+def undetermined(tick: Tick, fields: tuple[Field, ...] = FIELDS) -> list[tuple[str, str]]:
+    """(label, reason) of every grid value the data cannot determine, in grid order."""
+    out = []
+    for f in fields:
+        reason = tick.metrics.reasons.get(f.key)
+        if reason and f.text(tick) == DASH:
+            out.append((f.label, reason))
+    return out
+
+
+def why_line(tick: Tick, fields: tuple[Field, ...] = FIELDS) -> str:
+    """One line under the grid naming the dashes and the first reason (no mouse
+    needed; ``e`` lists them all)."""
+    missing = undetermined(tick, fields)
+    if not missing:
+        return ""
+    label, reason = missing[0]
+    more = f" (+{len(missing) - 1}, e)" if len(missing) > 1 else ""
+    return f"— {label}: {reason}{more}"
+
+
+def extra_line(tick: Tick) -> str:
+    """Compass bearing of the peak (when a convention is set) and the column diagnosis
+    (when a model is set), or nothing."""
+    parts = []
+    conv, peak = tick.bearing, tick.metrics.peak_angle_deg
+    if conv is not None and peak is not None:
+        ref = "T" if getattr(conv, "reference", "true") == "true" else "M"
+        parts.append(f"brg {conv.bearing_deg(peak):05.1f}°{ref}")
+    cols = tick.columns
+    if cols is not None:
+        parts.append(cols.summary() if hasattr(cols, "summary") else str(cols))
+    return " · ".join(parts)

@@ -99,4 +99,5 @@ def sample_tick(*, t: float = SAMPLE_T0 + 300.0, steer_deg: float = 12.0,
         target_deg=target_deg, tolerance_deg=tolerance_deg, reference=ref,
         expected_hpbw_deg=None, calibrated=True,
         events=(Event(t, "marker", {"text": "sample"}),),
+        age_s=0.05 if state == "receiving" else 42.0, provisional=False,
     )
