@@ -265,7 +265,8 @@ def run(args: argparse.Namespace) -> int:
     endpoint = publisher.start()
     source = None
     try:
-        source = ZmqSource(endpoint, stale_after_s=3.0, clock=clock)
+        # 3 wall-clock seconds without samples, whatever the speed
+        source = ZmqSource(endpoint, stale_after_s=3.0 * speed, clock=clock)
         driver = LiveDriver(source, monitor, interval_s=args.interval, clock=clock)
         options = dataclasses.replace(beam_options_from_args(
             args, "demo", recorder_factory=_recorder_factory(args, monitor, config)),
