@@ -5,8 +5,9 @@ different invented tick into every widget, lays out if needed, composes every ce
 the screen and serialises the frame to terminal escape codes -- a full repaint, the
 worst case (a normal refresh repaints only what changed).  Timed in this thread's CPU
 time so other processes on a busy machine do not inflate it; the garbage collector's
-pass that the app runs after each frame in a real terminal is timed with the frame.  ``bench/bench_redraw.py`` has the
-per-widget and live measurements.  Target (issue 7): p99 <= 20 ms.
+pass that the app runs after each frame in a real terminal is timed with the frame.
+``bench/bench_redraw.py`` has the per-widget and live measurements.  Target (issue 7):
+p99 <= 20 ms.
 """
 
 from __future__ import annotations
