@@ -91,8 +91,9 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     if x.size < 5:
         return metrics
     r = (x - pk + 180.0) % 360.0 - 180.0  # offsets from the peak, any frame
-    o = np.argsort(r, kind="stable")
-    r, p = r[o], p[o]
+    if not bool(np.all(r[1:] > r[:-1])):  # measure() hands them sorted unless circular
+        o = np.argsort(r, kind="stable")
+        r, p = r[o], p[o]
     pk_db = float(metrics.peak_power_db) if metrics.peak_power_db is not None else p.max()
     step = float(np.median(np.diff(r)))
     unc: dict[str, float] = {}
@@ -208,12 +209,10 @@ def _step_note(step_deg: float, hpbw_deg: float | None) -> str:
 
 def _lobe_span(p: np.ndarray, ic: int, level: float) -> tuple[int, int]:
     """Slice bounds of the contiguous run of samples at or above ``level`` around ic."""
-    lo = ic
-    while lo > 0 and p[lo - 1] >= level:
-        lo -= 1
-    hi = ic + 1
-    while hi < p.size and p[hi] >= level:
-        hi += 1
+    below = np.flatnonzero(p < level)
+    k = int(np.searchsorted(below, ic))
+    lo = int(below[k - 1]) + 1 if k > 0 else 0
+    hi = int(below[k]) if k < below.size else p.size
     return lo, hi
 
 
@@ -237,10 +236,20 @@ def _poly_fit(x: np.ndarray, y: np.ndarray, deg: int
     s = scale ** -np.arange(deg + 1, dtype=np.float64)
     coef = c * s
     cov = ata_inv * np.outer(s, s)
+    # vertex: Newton's method on f' from 0 (the peak is at offset ~0)
     d1 = np.polynomial.polynomial.polyder(coef)
-    roots = np.polynomial.polynomial.polyroots(d1) if d1.size > 1 else np.array([0.0])
-    real = roots[np.abs(roots.imag) < 1e-9].real if roots.size else np.array([0.0])
-    x_v = float(real[np.abs(real).argmin()]) if real.size else 0.0
+    d2 = np.polynomial.polynomial.polyder(d1)
+    x_v = 0.0
+    for _ in range(6):
+        h = float(np.polynomial.polynomial.polyval(x_v, d2))
+        if h == 0.0:
+            break
+        dx = float(np.polynomial.polynomial.polyval(x_v, d1)) / h
+        x_v -= dx
+        if abs(dx) < 1e-9 * scale:
+            break
+    if not abs(x_v) <= 2.0 * scale:  # diverged: the vertex is not inside the fit
+        x_v = 0.0
     return coef, cov, x_v
 
 
