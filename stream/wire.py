@@ -68,7 +68,8 @@ EXAMPLE_BYTES: int = 80
 #: Epochs remembered per topic to recognise two senders alternating.
 _EPOCHS_KEPT: int = 8
 #: A ``seq`` at most this far below the last one in its epoch is ``seq_backward``;
-#: further back the numbering started again (a restart, or another sender).
+#: further back the numbering started again (a restart, or another sender).  Without
+#: an epoch any step back is taken as the numbering starting again.
 REORDER_WINDOW: int = 1000
 
 #: Every reason a message can be rejected for, in a stable order.
@@ -478,8 +479,8 @@ class Decoder:
             last = st.last_seq
             if seq == last:
                 return "duplicate"
-            if last - REORDER_WINDOW <= seq < last:
-                return "seq_backward"
+            if epoch is not None and last - REORDER_WINDOW <= seq < last:
+                return "seq_backward"  # (without an epoch, going back is a restart)
             if seq > last + REORDER_WINDOW and self._switch(st, epoch, seq):
                 return self._account(stream, seq, epoch)
             if seq > last:

@@ -220,11 +220,13 @@ def test_real_restarts_still_count_after_senders_are_known():
     assert d.restarts == 3 and d.senders == 1 and d.lost == 0
 
 
-def test_epochless_numbering_that_starts_again_is_a_restart():
+@pytest.mark.parametrize("first", [5000, 50])
+def test_epochless_numbering_that_starts_again_is_a_restart(first):
     d = Decoder()
-    d.decode_many(_singles([5000, 5001], epoch=None), RX)
+    d.decode_many(_singles([first, first + 1, first + 1], epoch=None), RX)
     d.decode_many(_singles([0, 1], epoch=None), RX)
     assert d.restarts == 1 and d.lost == 0 and d.messages == 4
+    assert d.rejected == {"duplicate": 1}
 
 
 def test_refused_message_without_readable_seq_fills_the_gap_not_lost():
