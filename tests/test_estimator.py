@@ -647,9 +647,10 @@ def test_update_many_gives_the_bits_of_update_one_by_one(cfg) -> None:
 # -- fold paths: every one bit for bit equal to the plain reference ---------------------
 
 
-def _same_state(ref: RollingPattern, other: RollingPattern, where: object) -> None:
-    """Every array, number and sweep record of the two estimators and their sweep
-    detectors equal, bit for bit (NaN equal to NaN)."""
+def _same_state(ref: RollingPattern, other: RollingPattern, where: object,
+                records: bool = True) -> None:
+    """Every array, number and (with ``records``) sweep record of the two estimators and
+    their sweep detectors equal, bit for bit (NaN equal to NaN)."""
     for attr, a in vars(ref).items():
         if attr == "_path":
             continue
@@ -661,7 +662,9 @@ def _same_state(ref: RollingPattern, other: RollingPattern, where: object) -> No
     for slot in SweepDetector.__slots__:
         a, b = getattr(ref._det, slot), getattr(other._det, slot)
         assert a == b or (a != a and b != b), (where, slot)
-    assert repr(ref.sweeps) == repr(other.sweeps), where
+    assert ref.sweep_count == other.sweep_count, where
+    if records:
+        assert repr(ref.sweeps) == repr(other.sweeps), where
 
 
 def _path_stream(kind: str, seed: int) -> tuple[np.ndarray, np.ndarray]:
@@ -681,7 +684,7 @@ def _path_stream(kind: str, seed: int) -> tuple[np.ndarray, np.ndarray]:
         ang = (rng.uniform(-180, 180) + sign * np.arange(0.0, 800.0, 40 * step)
                + 180.0) % 360.0 - 180.0
     else:
-        ang = rng.uniform(-200.0, 400.0, 3000)
+        ang = rng.uniform(-200.0, 400.0, 1500)
     ang = ang[:6000]
     pw = ArrayModel(n_elements=6, spacing_wl=0.5).power_db(ang) - 40.0
     pw = pw + rng.normal(0.0, 0.3, ang.size)
@@ -690,8 +693,9 @@ def _path_stream(kind: str, seed: int) -> tuple[np.ndarray, np.ndarray]:
     return ang, pw
 
 
+@pytest.mark.timeout(900)  # per-sample reference; slow on a loaded machine
 @pytest.mark.parametrize("path", ["vector", "scalar", "run"])
-@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(kind=st.sampled_from(["dense", "seam", "turning", "junk"]),
        seed=st.integers(0, 2**32 - 1),
        sizes=st.lists(st.integers(1, 300), min_size=1, max_size=8),
@@ -722,7 +726,8 @@ def test_every_fold_path_gives_the_bits_of_the_reference(
     for j in range(0, len(batches), group):
         ref.update_many(batches[j:j + group], nows[j:j + group])
         fast.update_many(batches[j:j + group], nows[j:j + group])
-        _same_state(ref, fast, (path, j))
+        _same_state(ref, fast, (path, j), records=not (j // group) % 16)
+    _same_state(ref, fast, (path, "end"))
     assert ref.samples == int((np.isfinite(pw) & np.isfinite(ang)).sum())
 
 
