@@ -113,9 +113,17 @@ def _gone(pids: list[int], within_s: float) -> bool:
     return False
 
 
+def _cmdline(p: psutil.Process) -> str:
+    """A child's command line, or "" once it has exited (a zombie has none)."""
+    try:
+        return " ".join(p.cmdline())
+    except (psutil.NoSuchProcess, psutil.ZombieProcess, psutil.AccessDenied):
+        return ""
+
+
 def _screens(server_pid: int) -> list[psutil.Process]:
     return [p for p in psutil.Process(server_pid).children(recursive=True)
-            if "tui.cli" in " ".join(p.cmdline())]
+            if "tui.cli" in _cmdline(p)]
 
 
 def _wait_screens(server_pid: int, count: int, within_s: float = 30.0) -> list[int]:
