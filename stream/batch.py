@@ -74,3 +74,26 @@ class SampleBatch:
 def wrap_angle_deg(angle_deg: np.ndarray | float) -> np.ndarray:
     """Map any angle to [-180, 180) degrees."""
     return (np.asarray(angle_deg, dtype=np.float64) + 180.0) % 360.0 - 180.0
+
+
+def mod360(a: np.ndarray) -> np.ndarray:
+    """``a % 360.0`` (deg, numpy's floored remainder), the same floats, without a
+    per-element ``fmod`` when every value is within one turn (the usual case; ``%`` took
+    a tenth of ``measure()``): there the remainder is ``a``, or ``a + 360`` below 0
+    (a zero keeps its sign).  May return ``a`` itself; callers must not write into it.
+    tests/test_batch.py holds it equal to ``%``."""
+    if a.size == 0:
+        return a % 360.0
+    lo = a.min()
+    hi = a.max()
+    if lo >= 0.0 and hi < 360.0:
+        return a
+    if lo > -360.0 and hi < 360.0:
+        return np.where(a < 0.0, a + 360.0, a)
+    return a % 360.0
+
+
+def wrap180(a: np.ndarray) -> np.ndarray:
+    """``(a + 180) % 360 - 180`` (deg, into [-180, 180)), the same floats, by
+    :func:`mod360`."""
+    return mod360(a + 180.0) - 180.0

@@ -56,6 +56,7 @@ import functools
 import numpy as np
 from scipy.signal import savgol_coeffs
 
+from stream.batch import mod360, wrap180
 from stream.beam import HALF_POWER_DB, METRIC_KEYS, BeamMetrics
 from stream.uncertainty import with_uncertainty
 
@@ -189,7 +190,7 @@ def _frame_or_reason(angle_deg: np.ndarray, power_db: np.ndarray) -> _Frame | Be
     # Re-centre on the peak sample: r is the offset from it, p_r the power.
     x_pk = float(x[i])
     if circular:
-        r, pr = _sort_by((x - x_pk + 180.0) % 360.0 - 180.0, p)
+        r, pr = _sort_by(wrap180(x - x_pk), p)
         ic = int(np.searchsorted(r, 0.0))
     else:
         r = x - x_pk
@@ -322,7 +323,7 @@ def _report(f: _Frame, fit: _Fit) -> BeamMetrics:
 
     # Front-to-back ratio.
     back = float(vals["peak_angle_deg"]) + 180.0  # type: ignore[arg-type]
-    d_back = np.abs((r - (v_r + 180.0) + 180.0) % 360.0 - 180.0)
+    d_back = np.abs(wrap180(r - (v_r + 180.0)))
     if float(d_back.min()) <= BACK_COVER_DEG:
         vals["front_to_back_db"] = pk_db - float(ps[d_back <= BACK_WINDOW_DEG].max())
     else:
@@ -366,8 +367,9 @@ def _frame(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool, 
 
     Returns ``(x, p, circular, report_wrapped)`` with ``x`` strictly increasing.
     """
-    w = a % 360.0
-    w[w >= 360.0] = 0.0  # a tiny negative angle rounds to 360.0; it is 0
+    w = mod360(a)
+    if w[-1] >= 360.0 or (w >= 360.0).any():  # a tiny negative angle rounds to 360.0
+        w = np.where(w >= 360.0, 0.0, w)  # it is 0
     ws, ps = _sort_by(w, p)
     # Merge duplicate angles in linear power.
     d = np.diff(ws)
@@ -392,11 +394,11 @@ def _frame(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool, 
     amax = float(a.max())
     if amax - amin < 360.0 and 360.0 - (amax - amin) >= gaps[g] - 1e-9:
         # A sector sweep that does not cross the seam of its own frame: keep that frame.
-        x, ps = _sort_by((ws - amin) % 360.0 + amin, ps)
+        x, ps = _sort_by(mod360(ws - amin) + amin, ps)
         return x, ps, False, False
     # Cut the circle at its largest gap.
     start = ws[(g + 1) % n]
-    x, ps = _sort_by((ws - start) % 360.0 + start, ps)
+    x, ps = _sort_by(mod360(ws - start) + start, ps)
     return x, ps, False, True
 
 
@@ -584,7 +586,7 @@ def _window(r: np.ndarray, p: np.ndarray, center: float, half: float,
         i0 = int(np.searchsorted(r, lo, side="left"))
         i1 = int(np.searchsorted(r, hi, side="right"))
         return r[i0:i1] - center, p[i0:i1]
-    d = (r - center + 180.0) % 360.0 - 180.0
+    d = wrap180(r - center)
     sel = np.abs(d) <= half
     return d[sel], p[sel]
 

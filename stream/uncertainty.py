@@ -58,6 +58,7 @@ from functools import lru_cache
 import numpy as np
 from scipy.signal import savgol_coeffs
 
+from stream.batch import wrap180
 from stream.beam import HALF_POWER_DB, BeamMetrics
 
 #: Samples within this many dB of the peak are used to estimate the noise.
@@ -90,18 +91,21 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     p = np.asarray(power_db, dtype=np.float64)
     if x.size < 5:
         return metrics
-    r = (x - pk + 180.0) % 360.0 - 180.0  # offsets from the peak, any frame
+    r = wrap180(x - pk)  # offsets from the peak, any frame
     if not bool(np.all(r[1:] > r[:-1])):  # measure() hands them sorted unless circular
         o = np.argsort(r, kind="stable")
         r, p = r[o], p[o]
     pk_db = float(metrics.peak_power_db) if metrics.peak_power_db is not None else p.max()
-    step = float(np.median(np.diff(r)))
+    dr = np.diff(r)
+    step = float(np.median(dr[::-(-dr.size // 512)]))  # <= 512 steps give the median
     unc: dict[str, float] = {}
     reasons = dict(metrics.reasons)
     hpbw = metrics.hpbw_deg
 
     # Main-lobe fit: samples above half power around the peak, as measure() fits.
-    ic = int(np.abs(r).argmin())
+    ic = int(np.searchsorted(r, 0.0))  # r is sorted: the sample nearest offset 0
+    if ic == r.size or (ic > 0 and -r[ic - 1] < r[ic]):
+        ic -= 1
     lo, hi = _lobe_span(p, ic, pk_db + HALF_POWER_DB)
     fit = _poly_fit(r[lo:hi], p[lo:hi], 4 if hi - lo >= 7 else 2)
     # The noise: from the quartic's residuals when the lobe holds enough samples (a
@@ -109,7 +113,7 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     # enough to tell noise from the pattern's own curvature, else unknown (0: the step
     # term and its caveat speak for the data).
     if fit is not None and hi - lo >= LOBE_SAMPLES_FOR_NOISE:
-        res = p[lo:hi] - np.polynomial.polynomial.polyval(r[lo:hi], fit[0])
+        res = p[lo:hi] - np.polyval(fit[0][::-1], r[lo:hi])
         sigma = float(np.sqrt(np.sum(res * res) / (hi - lo - fit[0].size)))
     elif hpbw is not None and hpbw / step >= MIN_SAMPLES_PER_HPBW:
         sigma = noise_sigma_db(p, pk_db)
@@ -120,8 +124,8 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     if fit is not None:
         coef, cov_unit, x_v = fit
         d2 = _poly_der(coef, x_v, 2)
-        g = np.array([k * x_v ** (k - 1) if k else 0.0 for k in range(coef.size)])
-        g0 = np.array([x_v ** k for k in range(coef.size)])
+        g0 = x_v ** np.arange(coef.size, dtype=np.float64)
+        g = np.arange(coef.size, dtype=np.float64) * np.concatenate(([0.0], g0[:-1]))
         var_pk_db = sigma ** 2 * float(g0 @ cov_unit @ g0)
         if d2 < 0:
             s_pk_noise = sigma * float(np.sqrt(max(g @ cov_unit @ g, 0.0))) / abs(d2)
@@ -237,14 +241,14 @@ def _poly_fit(x: np.ndarray, y: np.ndarray, deg: int
     coef = c * s
     cov = ata_inv * np.outer(s, s)
     # vertex: Newton's method on f' from 0 (the peak is at offset ~0)
-    d1 = np.polynomial.polynomial.polyder(coef)
-    d2 = np.polynomial.polynomial.polyder(d1)
+    d1 = _derivative(coef.tolist(), 1)
+    d2 = _derivative(coef.tolist(), 2)
     x_v = 0.0
     for _ in range(6):
-        h = float(np.polynomial.polynomial.polyval(x_v, d2))
+        h = _horner(d2, x_v)
         if h == 0.0:
             break
-        dx = float(np.polynomial.polynomial.polyval(x_v, d1)) / h
+        dx = _horner(d1, x_v) / h
         x_v -= dx
         if abs(dx) < 1e-9 * scale:
             break
@@ -253,9 +257,24 @@ def _poly_fit(x: np.ndarray, y: np.ndarray, deg: int
     return coef, cov, x_v
 
 
+def _derivative(coef: list[float], m: int) -> list[float]:
+    """Coefficients (low order first) of the m-th derivative of a polynomial; plain
+    Python on a handful of scalars (numpy.polynomial's per-call cost dominated here)."""
+    for _ in range(m):
+        coef = [k * c for k, c in enumerate(coef)][1:] or [0.0]
+    return coef
+
+
+def _horner(coef: list[float], x: float) -> float:
+    """Value at x of the polynomial with coefficients ``coef`` (low order first)."""
+    y = 0.0
+    for c in reversed(coef):
+        y = y * x + c
+    return y
+
+
 def _poly_der(coef: np.ndarray, x: float, m: int) -> float:
-    return float(np.polynomial.polynomial.polyval(
-        x, np.polynomial.polynomial.polyder(coef, m)))
+    return _horner(_derivative(coef.tolist(), m), x)
 
 
 def _three(r: np.ndarray, p: np.ndarray, k: int) -> tuple[float, float, float, float,
