@@ -39,7 +39,7 @@ def test_demo_options_build_the_simulated_array_and_its_model() -> None:
     assert abs(monitor._expected_hpbw - 12.80) < 0.05
 
 
-async def test_demo_shows_a_live_beam_within_two_seconds_then_stale_when_the_publisher_dies(
+async def test_demo_shows_a_live_beam_then_stale_when_the_publisher_dies(
         ) -> None:
     args = demo_args("--rate-sps", "20000", "--sweeps-per-s", "4")
     config = demo.synth_config(args)
@@ -53,15 +53,17 @@ async def test_demo_shows_a_live_beam_within_two_seconds_then_stale_when_the_pub
         driver = LiveDriver(source, monitor, interval_s=0.1)
         app = LobewatchApp(monitor, driver, mode="demo", refresh_hz=10)
         async with app.run_test(size=(100, 30)) as pilot:
+            # Bounded wait, not a speed claim (time to first beam is a bench figure):
+            # a busy machine may take several seconds.
             t0 = time.monotonic()
             shown = None
-            while time.monotonic() - t0 < 2.0:
+            while time.monotonic() - t0 < 30.0:
                 await pilot.pause(0.05)
                 tick = app.beam.shown_tick
                 if tick is not None and tick.metrics.peak_angle_deg is not None:
                     shown = tick
                     break
-            assert shown is not None, "no beam on screen within 2 s"
+            assert shown is not None, "no beam on screen within 30 s"
             # the steady scenario's beam points at 0 deg (invented scenario)
             assert abs(shown.metrics.peak_angle_deg) < 3.0
             assert app.screen.query_one(Readout).values()["rd-digits"].strip() != "--"
@@ -70,7 +72,7 @@ async def test_demo_shows_a_live_beam_within_two_seconds_then_stale_when_the_pub
             pub.stop.set()
             pub.thread.join(5.0)
             t1 = time.monotonic()
-            while time.monotonic() - t1 < 5.0:
+            while time.monotonic() - t1 < 20.0:
                 await pilot.pause(0.1)
                 if "STALE" in app.screen.query_one(StatusLine).plain:
                     break

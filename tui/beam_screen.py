@@ -186,6 +186,10 @@ class BeamScreen(Screen[None]):
         self.w_history.border_title = "alarm history"
         self._fill_key_bar()
         self.monitor.event_sinks.append(self._on_event)
+        # A screen has the time for the column diagnosis once per sweep (the monitor
+        # leaves it off for headless runs and fast replays); it needs the array model.
+        if self.monitor.model is not None:
+            self.monitor.diagnose_columns = True
         if self.driver is not None and self.options.run_driver:
             self.run_worker(self._drive(), name="driver", group="driver", exclusive=True,
                             exit_on_error=False)
