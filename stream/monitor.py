@@ -56,6 +56,8 @@ class Monitor:
         #: set.  Off by default: a few least-squares fits per sweep are worth it on a
         #: screen, not in a fast replay or a headless run; the beam screen turns it on.
         self.diagnose_columns = False
+        #: Latest ``radio`` event's text (the IQ front end's lag estimate), else None.
+        self.radio_text: str | None = None
 
     # -- data in ---------------------------------------------------------------------
     def ingest(self, batch: SampleBatch) -> None:
@@ -90,6 +92,8 @@ class Monitor:
         """Send an event to the sinks now and attach it to the next tick (sources use this
         for status changes; replay uses it to re-apply recorded ones)."""
         self._pending.append(event)
+        if event.kind == "radio":  # the lag estimate, shown with every later readout
+            self.radio_text = str(event.data.get("text") or "") or None
         for sink in self.event_sinks:
             sink(event)
         return event
@@ -165,6 +169,7 @@ class Monitor:
             source=source, target_deg=self.target_deg, tolerance_deg=self.tolerance_deg,
             reference=self.reference, expected_hpbw_deg=expected, calibrated=self.calibrated,
             bearing=self.bearing, columns=self._column_diagnosis(snap),
+            radio=self.radio_text,
             age_s=(max(0.0, t - self.last_sample_t)
                    if self.last_sample_t is not None else None),
             provisional=self.estimator.sweep_count < 1,
@@ -173,6 +178,7 @@ class Monitor:
         self._pending.clear()
         if self.alarms is not None:
             for ev in self.alarms.evaluate(tick):
+                ev = self._with_bearings(ev, metrics.peak_angle_deg)
                 events.append(ev)
                 for sink in self.event_sinks:
                     sink(ev)
@@ -182,6 +188,21 @@ class Monitor:
         for sink in self.tick_sinks:
             sink(tick)
         return tick
+
+    def _with_bearings(self, event: Event, peak_deg: float | None) -> Event:
+        """An alarm event with compass bearings beside the array angles (peak and any
+        watched direction) when the user set a bearing convention."""
+        conv = self.bearing
+        if conv is None:
+            return event
+        data = dict(event.data)
+        if peak_deg is not None:
+            data["peak_bearing_deg"] = conv.bearing_deg(peak_deg)
+        watch = data.get("watch_deg")
+        if isinstance(watch, (int, float)):
+            data["watch_bearing_deg"] = conv.bearing_deg(float(watch))
+        data["bearing_reference"] = conv.reference
+        return replace(event, data=data)
 
     def _column_diagnosis(self, snap: object) -> object:
         """Column diagnosis of the pattern, recomputed only when a sweep has completed

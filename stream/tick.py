@@ -121,6 +121,9 @@ class Tick:
     #: stream.diagnosis.ColumnDiagnosis of the last completed sweep when a model is set
     #: and Monitor.diagnose_columns is on (recomputed at most once per sweep), else None.
     columns: Any = None
+    #: The radio front end's latest clock-lag estimate as text (``lag 39.0 +/- 0.1 ms
+    #: (3 pairs)``) when the samples come from IQ + positioner angle, else None.
+    radio: str | None = None
 
     def metrics_record(self) -> dict[str, Any]:
         """The headless ``metrics`` JSON line as a dict."""

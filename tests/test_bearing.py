@@ -54,3 +54,29 @@ def test_headless_metrics_line_carries_the_peak_bearing() -> None:
     assert rec["peak_bearing_deg"] == pytest.approx((350.0 + rec["peak_angle_deg"]) % 360.0)
     assert rec["peak_bearing_deg"] == pytest.approx(2.0, abs=0.3)
     assert rec["bearing_reference"] == "magnetic"
+
+
+def test_alarm_events_carry_bearings_of_the_peak_and_the_watched_direction() -> None:
+    from stream.array_model import ArrayModel
+    from stream.batch import SampleBatch
+    from stream.estimator import EstimatorConfig, RollingPattern
+    from stream.monitor import Monitor
+    from stream.tick import Event
+
+    class OneWatchAlarm:  # an engine that raises one watched-direction alarm per tick
+        def evaluate(self, tick):
+            return [Event(tick.t, "alarm", {"rule": "watch", "watch_deg": -30.0,
+                                             "transition": "raise"})]
+
+    mon = Monitor(RollingPattern(EstimatorConfig(bin_deg=0.5)), OneWatchAlarm())
+    a = np.arange(-60.0, 60.0, 0.25)
+    mon.ingest(SampleBatch.from_arrays(a, ArrayModel(4, steer_deg=12.0).power_db(a),
+                                       rx_t=1.0))
+    (plain,) = mon.tick(1.1).events
+    assert "peak_bearing_deg" not in plain.data
+    mon.bearing = BearingConvention(offset_deg=350.0, sense="ccw")
+    (ev,) = mon.tick(1.2).events
+    peak = mon.last_tick.metrics.peak_angle_deg
+    assert ev.data["peak_bearing_deg"] == pytest.approx((350.0 - peak) % 360.0)
+    assert ev.data["watch_bearing_deg"] == pytest.approx(20.0)  # 350 - (-30) = 380 -> 20
+    assert ev.data["bearing_reference"] == "true"

@@ -285,7 +285,8 @@ def test_cli_live_record_then_headless_replay_prints_the_live_lines(tmp_path):
     try:
         live = subprocess.Popen(cli + ["live", endpoint, "--headless", "--interval", "0.2",
                                        "--record", str(rec), "--elements", "4",
-                                       "--sll-limit-db", "-30", "--raise-hold-s", "0"],
+                                       "--sll-limit-db", "-30", "--raise-hold-s", "0",
+                                       "--bearing-offset-deg", "200"],
                                 cwd=root, env=env, stdout=subprocess.PIPE,
                                 stderr=subprocess.PIPE)
         deadline = time.monotonic() + 120  # a bound against hanging (slow start under load)
@@ -313,6 +314,10 @@ def test_cli_live_record_then_headless_replay_prints_the_live_lines(tmp_path):
     assert body(replay_lines) == body(live_lines)
     types = {json.loads(ln)["type"] for ln in live_lines}
     assert {"metrics", "status", "alarm"} <= types  # side lobes above -30 dB must alarm
+    # the compass convention was recorded: replay gives the same bearings (compared above)
+    recs = [json.loads(ln) for ln in live_lines]
+    assert all("peak_bearing_deg" in r for r in recs if r["type"] in ("metrics", "alarm")
+               and r.get("peak_angle_deg", r.get("rule")) is not None)
     assert json.loads(replay_lines[-1])["type"] == "summary"
     # the recorded thresholds were used above; other ones re-judge the same samples
     import io

@@ -832,6 +832,21 @@ async def test_bearing_and_column_diagnosis_are_shown_when_set() -> None:
         assert "3.0 of 4 columns; suspect 2 or 3 (dead)" in extra
 
 
+async def test_the_radio_lag_estimate_is_on_the_readout_with_its_sigma() -> None:
+    """Issue: the lag between the IQ and angle clocks is shown in the readout with its
+    uncertainty; it arrives as a ``radio`` event and stays on every later tick."""
+    from stream.angle_join import LagEstimate
+    from tui.iq_options import lag_event
+    mon = make_monitor()
+    mon.emit(lag_event(5.0, LagEstimate(0.0412, 0.0013, 3, 30.0)))
+    tick = mon.tick(6.0, SourceStats(state="receiving"))
+    assert tick.radio == "lag 41.2 +/- 1.3 ms (3 pairs)"
+    mon.last_tick = replace(sample_tick(), radio=tick.radio)
+    app = make_app(mon)
+    async with app.run_test(size=(120, 40)):
+        assert "lag 41.2 ± 1.3 ms (3 pairs)" in app.screen.query_one(Readout).values()["rd-extra"]
+
+
 async def test_k_writes_a_commissioning_record_in_a_worker_and_says_where(tmp_path) -> None:
     mon = make_monitor(model=sample_model())
     mon.last_tick = sample_tick()

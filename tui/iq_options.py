@@ -203,8 +203,6 @@ def run_iq_live(args: argparse.Namespace) -> int:
     def metadata() -> dict[str, Any]:
         meta = live._metadata(args, monitor)
         meta["source"] = source.info()  # calibration, lag mode and value in force
-        if monitor.bearing is not None:
-            meta["bearing"] = monitor.bearing.to_dict()
         return meta
 
     recorder = None

@@ -100,6 +100,8 @@ def _metadata(args: argparse.Namespace, monitor: Monitor) -> dict[str, Any]:
     with contextlib.suppress(ModuleNotFoundError, AttributeError):
         from tui.options import settings_record
         meta["settings"] = settings_record(args, monitor)
+    if monitor.bearing is not None:  # replay and records give bearings again
+        meta["bearing"] = monitor.bearing.to_dict()
     return meta
 
 

@@ -106,6 +106,14 @@ def monitor_for_session(args: argparse.Namespace, meta: dict[str, Any]) -> Monit
         monitor.alarms = AlarmEngine(cfg)
         monitor.target_deg = getattr(cfg, "target_deg", None)
         monitor.tolerance_deg = getattr(cfg, "tolerance_deg", None)
+    bearing = meta.get("bearing")
+    if isinstance(bearing, dict):  # the compass convention the live run used
+        from stream.bearing import BearingConvention
+        try:
+            monitor.bearing = BearingConvention(**bearing)
+        except (TypeError, ValueError) as exc:
+            raise UserError(f"{args.file}: recorded bearing convention unusable ({exc})"
+                            ) from None
     return monitor
 
 

@@ -273,7 +273,8 @@ class Readout(Widget):
         yield Static(DASH, id="rd-source", classes="rd-value").with_tooltip(
             "state: source state (waiting, receiving, stale, ended)")
         yield Static("", id="rd-extra", classes="rd-value").with_tooltip(
-            "compass bearing of the peak (when set) and the column diagnosis (with a model)")
+            "compass bearing of the peak (when set), the column diagnosis (with a model) and "
+            "the radio's clock lag (IQ input)")
 
     # -- updates -----------------------------------------------------------------------
     def _set(self, wid: str, text: str, tooltip: str | None = None) -> None:
@@ -380,8 +381,8 @@ def why_line(tick: Tick, fields: tuple[Field, ...] = FIELDS) -> str:
 
 
 def extra_line(tick: Tick) -> str:
-    """Compass bearing of the peak (when a convention is set) and the column diagnosis
-    (when a model is set), or nothing."""
+    """Compass bearing of the peak (when a convention is set), the column diagnosis
+    (when a model is set) and the radio's clock lag (IQ input), or nothing."""
     parts = []
     conv, peak = tick.bearing, tick.metrics.peak_angle_deg
     if conv is not None and peak is not None:
@@ -390,4 +391,6 @@ def extra_line(tick: Tick) -> str:
     cols = tick.columns
     if cols is not None:
         parts.append(cols.summary() if hasattr(cols, "summary") else str(cols))
+    if tick.radio:  # IQ + positioner: the clock lag between the two, with its sigma
+        parts.append(tick.radio.replace("+/-", "±"))
     return " · ".join(parts)
