@@ -196,15 +196,19 @@ def _tables(asmt: Assessment, data: RecordData) -> list[tuple[str, list[str], li
     rows = []
     ref = reference_differences(asmt.metrics, data.reference.metrics) \
         if data.reference is not None else None
+    unc = getattr(asmt.metrics, "uncertainty", None) or {}
     for k in METRIC_KEYS:
         v = getattr(asmt.metrics, k)
-        row = [LABELS[k].strip().format(p=unit), _fmt(v)]
+        sigma = unc.get(k) if v is not None else None
+        row = [LABELS[k].strip().format(p=unit), _fmt(v),
+               _fmt(sigma) if sigma is not None else ""]
         if ref is not None:
             row += [_fmt(getattr(data.reference.metrics, k)), _fmt(ref[k], signed=True)]
-        row.append(asmt.metrics.reasons.get(k, "") if v is None else "")
+        # the reason for a missing value, or the caveat on a present one (e.g. the step)
+        row.append(asmt.metrics.reasons.get(k, ""))
         rows.append(row)
-    head = ["metric", "measured"] + (["reference", "meas. - ref."] if ref is not None else []) \
-        + ["note"]
+    head = ["metric", "measured", "± 1 sigma"] \
+        + (["reference", "meas. - ref."] if ref is not None else []) + ["note"]
     t.append(("Beam metrics", head, rows))
     f = asmt.fit
     if f is not None:
@@ -227,6 +231,10 @@ def _tables(asmt: Assessment, data: RecordData) -> list[tuple[str, list[str], li
     t.append(("Inputs", ["file", "kind", "samples", "SHA-256"],
               [[i["path"], i["kind"], str(i["samples"]), i["sha256"]] for i in data.inputs]))
     return t
+
+
+#: Who signs a printed record: the one who measured, the one who accepts it.
+SIGN_OFF: tuple[str, ...] = ("measured by (operator)", "accepted by (customer)")
 
 
 def _header_lines(asmt: Assessment, data: RecordData) -> list[tuple[str, str]]:
@@ -273,6 +281,8 @@ def render_markdown(asmt: Assessment, data: RecordData, images: dict[str, str]) 
         out += [f"| {_iso(e['t'])} | {e['kind']} | {_event_detail(e)} |" for e in data.events]
         out.append("")
     out += [f"- {n}" for n in asmt.notes]
+    out += ["", "### Sign-off", ""] + [f"- {who}: ____________________  date: __________"
+                                       for who in SIGN_OFF]
     return "\n".join(out) + "\n"
 
 
@@ -291,7 +301,7 @@ th{background:#eef1f6} td.mono{font-family:monospace;font-size:11px;word-break:b
 .incomplete,.undetermined{background:#fdf0c8;color:#6b4f00}
 img{max-width:100%;border:1px solid #ddd;margin:6px 0}
 dl{display:grid;grid-template-columns:140px auto;gap:2px 10px;font-size:14px}
-dt{font-weight:bold}
+dt{font-weight:bold} table.sign td{height:34px}
 @media print{body{margin:8mm} img{page-break-inside:avoid} table{page-break-inside:auto}}
 """
 
@@ -332,6 +342,10 @@ def render_html(asmt: Assessment, data: RecordData, images: dict[str, bytes]) ->
                 f"<td>{e(_event_detail(ev))}</td></tr>" for ev in data.events]
         out.append("</table>")
     out += [f"<p>{e(n)}</p>" for n in asmt.notes]
+    out.append("<h3>Sign-off</h3><table class=\"sign\"><tr><th>role</th><th>name</th>"
+               "<th>signature</th><th>date</th></tr>")
+    out += [f"<tr><td>{e(who)}</td><td></td><td></td><td></td></tr>" for who in SIGN_OFF]
+    out.append("</table>")
     out.append("<p style=\"font-size:11px;color:#666\">Safety: measurements on energised "
                "antennas follow local RF exposure limits and local codes; work at height only "
                "as training and local rules allow.</p>")

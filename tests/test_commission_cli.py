@@ -57,6 +57,11 @@ def test_done_means_command_writes_a_readable_record(tmp_path, capsys):
     md = (out / "record.md").read_text()
     assert "| criterion | measured | limit | margin | result | note |" in md
     assert "Verdict: PASS" in md and "Invented Hill" in md
+    # every headline number with its 1-sigma, and the 5-degree step's caveat beside it
+    peak_row = next(ln for ln in md.splitlines() if ln.startswith("| peak direction"))
+    cells = [c.strip() for c in peak_row.strip("|").split("|")]
+    assert float(cells[2]) > 0 and "sampling step" in cells[3]
+    assert "### Sign-off" in md and "accepted by (customer)" in md
     html = (out / "record.html").read_text()
     assert "<th>criterion</th><th>measured</th><th>limit</th><th>margin</th>" in html
     assert "PASS" in html
