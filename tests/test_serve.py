@@ -60,6 +60,14 @@ def test_only_screen_commands_are_served() -> None:
         screen_command([])
 
 
+def test_serve_options_after_the_command_are_refused_not_passed_on() -> None:
+    # `lobewatch serve demo --listen H:P` would hand --listen to the demo screen
+    with pytest.raises(UsageError, match="--listen is an option of serve"):
+        screen_command(["demo", "--listen", "127.0.0.1:8765"])
+    with pytest.raises(UsageError, match="--title is an option of serve"):
+        screen_command(["--", "demo", "--title=x"])
+
+
 def test_reachable_listen_needs_insecure_listen(capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["serve", "--listen", "0.0.0.0:8000", "--", "demo"]) == 2
     err = capsys.readouterr().err

@@ -80,6 +80,10 @@ def is_loopback(host: str) -> bool:
             return False
 
 
+#: serve's own options: after the command they would reach the screen, which has none.
+SERVE_OPTIONS: tuple[str, ...] = ("--listen", "--insecure-listen", "--title")
+
+
 def screen_command(words: list[str]) -> list[str]:
     """The served command's words, checked: a screen command, not a headless one."""
     if words and words[0] == "--":
@@ -90,6 +94,11 @@ def screen_command(words: list[str]) -> list[str]:
     if words[0] not in SCREEN_COMMANDS:
         raise UsageError(f"`{words[0]}` is not a screen command; serve one of "
                          f"{', '.join(SCREEN_COMMANDS)} (e.g. `lobewatch serve -- demo`)")
+    own = [w for w in words[1:] if w.split("=", 1)[0] in SERVE_OPTIONS]
+    if own:
+        raise UsageError(f"{own[0].split('=', 1)[0]} is an option of serve, not of "
+                         f"`{words[0]}`: put it before the command, e.g. `lobewatch serve "
+                         f"--listen 127.0.0.1:8001 -- {words[0]}`")
     if "--headless" in words:
         raise UsageError("--headless prints JSON Lines, there is no screen to serve; "
                          "drop --headless")
