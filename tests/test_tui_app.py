@@ -213,8 +213,8 @@ async def test_readout_shows_what_the_estimator_computed_for_a_simulated_beam() 
         assert abs(tick.metrics.hpbw_deg - 12.80) < 0.5
         v = app.screen.query_one(Readout).values()
         sigma = tick.metrics.uncertainty.get("hpbw_deg")
-        assert v["rd-v-hpbw"] == f"{tick.metrics.hpbw_deg:.1f}" + (
-            f"±{sigma:.1f}" if sigma is not None else "") + "°"
+        shown_sigma = "" if sigma is None else (f"±{sigma:.1f}" if sigma >= 0.05 else "±<0.1")
+        assert v["rd-v-hpbw"] == f"{tick.metrics.hpbw_deg:.1f}{shown_sigma}°"
         # rounded as shown, and never "-0.0"
         assert v["rd-digits"].strip() == f"{round(tick.metrics.peak_angle_deg, 1) + 0.0:+.1f}"
         assert v["rd-digits"].strip() != "-0.0"

@@ -341,3 +341,10 @@ def test_sim_clock_runs_faster_by_its_factor() -> None:
     clock = SimClock(10.0, base=lambda: wall[0])
     wall[0] = 102.5
     assert clock() == pytest.approx(100.0 + 25.0)
+
+
+def test_a_sigma_below_the_last_digit_reads_less_than_never_zero() -> None:
+    from tui.widgets.readout import fmt_sigma
+    assert fmt_sigma(-11.3, 0.004, " dB") == "-11.3±<0.1 dB"
+    assert fmt_sigma(26.3, 0.12, "°") == "26.3±0.1°"
+    assert fmt_sigma(26.3, None, "°") == "26.3°"

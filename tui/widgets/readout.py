@@ -55,7 +55,10 @@ def fmt_sigma(value: float | None, sigma: float | None, unit: str, digits: int =
     if text == DASH:
         return DASH
     if sigma is not None:
-        text += f"±{sigma:.{digits}f}"
+        # a sigma below the last digit shown reads "<0.1", never "±0.0" (which looks
+        # like certainty)
+        least = 10.0 ** -digits
+        text += f"±{sigma:.{digits}f}" if sigma >= 0.5 * least else f"±<{least:.{digits}f}"
     return text + unit
 
 
