@@ -164,7 +164,7 @@ PACED_PUBLISHER = r"""
 import sys, time, secrets
 import numpy as np, zmq
 from stream.array_model import ArrayModel
-from stream.wire import encode_binary_batch
+from stream.wire_encode import encode_binary_batch
 endpoint, duration = sys.argv[1], float(sys.argv[2])
 ctx = zmq.Context(); sock = ctx.socket(zmq.PUB); sock.setsockopt(zmq.LINGER, 0)
 sock.setsockopt(zmq.SNDHWM, 100000); sock.bind(endpoint)

@@ -30,7 +30,7 @@ import numpy as np
 
 from stream.batch import SampleBatch
 from stream.errors import InputFileError, UserError
-from stream.wire import decode_json_object
+from stream.wire_format import decode_json_object
 
 CSV_EXTENSIONS: tuple[str, ...] = (".csv", ".tsv", ".txt")
 JSONL_EXTENSIONS: tuple[str, ...] = (".jsonl", ".ndjson")

@@ -38,7 +38,7 @@ from stream.batch import SampleBatch
 from stream.errors import UserError
 from stream.iq import ITEM_BYTES, Channel, IqReducer, decode_iq
 from stream.tick import SourceStats
-from stream.wire import ANGLE_MAX_DEG, ANGLE_MIN_DEG
+from stream.wire_format import ANGLE_MAX_DEG, ANGLE_MIN_DEG
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
 
 #: Frames (or angle messages) taken per drain before the loop gets a turn.

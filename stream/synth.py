@@ -41,7 +41,7 @@ import numpy as np
 from stream.array_model import element_power, taper_weights
 from stream.batch import SampleBatch
 from stream.scenarios import Scenario, get_scenario
-from stream.wire import (
+from stream.wire_encode import (
     encode_binary_batch,
     encode_json_batch,
     encode_json_single,

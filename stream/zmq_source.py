@@ -35,7 +35,7 @@ Robustness (figures in docs/reliability.md):
 * bounded work per loop turn: the drain checks its time budget after every message and
   stops after ``drain_bytes_max`` bytes, so decoding what it took stays bounded too; a
   message's frames are received one at a time, frames past
-  :data:`stream.wire.MAX_PARTS` or past ``max_message_bytes`` in total are dropped as
+  :data:`stream.wire_format.MAX_PARTS` or past ``max_message_bytes`` in total are dropped as
   they arrive (never accumulated) and the message counted as refused;
 * load shedding: when the queue has not been seen empty for ``shed_after_s`` the
   receiver is behind; it then drops queued messages unread (cheap) until the queue is
@@ -67,7 +67,8 @@ from stream.batch import SampleBatch
 from stream.curve import AUTH_FAILED, HANDSHAKE_FAILED_EVENTS, CurveConfig, CurveGuard
 from stream.errors import UserError
 from stream.tick import RESTART_SHOW_S, SourceStats
-from stream.wire import DEFAULT_MAX_MESSAGE_BYTES, FORMATS, MAX_PARTS, Decoder, Refused
+from stream.wire import Decoder, Refused
+from stream.wire_format import DEFAULT_MAX_MESSAGE_BYTES, FORMATS, MAX_PARTS
 
 #: Default receive high-water mark, messages.
 DEFAULT_HWM: int = 20_000

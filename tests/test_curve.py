@@ -30,7 +30,8 @@ from stream.estimator import EstimatorConfig, RollingPattern
 from stream.monitor import Monitor
 from stream.synth import SynthConfig, run_publisher
 from stream.tick import SourceStats
-from stream.wire import REJECT_REASONS, encode_json_single
+from stream.wire_encode import encode_json_single
+from stream.wire_format import REJECT_REASONS
 from stream.zmq_source import ZmqSource
 from tui.cli import UsageError
 from tui.curve_options import check_listen, curve_from_args

@@ -30,7 +30,7 @@ from stream.estimator import EstimatorConfig, RollingPattern
 from stream.monitor import Monitor
 from stream.synth import SynthConfig, SynthSource
 from stream.tick import SourceStats
-from stream.wire import encode_binary_batch
+from stream.wire_encode import encode_binary_batch
 from tui.cli import UsageError, build_parser
 from tui.fleet_options import (
     fleet_requested,

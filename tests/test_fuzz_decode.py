@@ -21,14 +21,9 @@ import zmq
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from stream.wire import (
-    MAX_PARTS,
-    REJECT_REASONS,
-    Decoder,
-    encode_binary_batch,
-    encode_json_batch,
-    encode_json_single,
-)
+from stream.wire import Decoder
+from stream.wire_encode import encode_binary_batch, encode_json_batch, encode_json_single
+from stream.wire_format import MAX_PARTS, REJECT_REASONS
 from stream.zmq_source import ZmqSource
 
 FUZZ = settings(max_examples=100, deadline=None,

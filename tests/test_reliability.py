@@ -18,13 +18,9 @@ import numpy as np
 import pytest
 import zmq
 
-from stream.wire import (
-    REJECT_REASONS,
-    Decoder,
-    encode_binary_batch,
-    encode_json_batch,
-    encode_json_single,
-)
+from stream.wire import Decoder
+from stream.wire_encode import encode_binary_batch, encode_json_batch, encode_json_single
+from stream.wire_format import REJECT_REASONS
 from stream.zmq_source import ZmqSource
 
 RX = 1767225600.0

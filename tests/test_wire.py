@@ -10,15 +10,14 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from stream.wire import (
-    REJECT_REASONS,
-    Decoder,
-    decode_json_object,
+from stream.wire import Decoder
+from stream.wire_encode import (
     encode_binary_batch,
     encode_json_batch,
     encode_json_single,
     encode_raw_f32,
 )
+from stream.wire_format import REJECT_REASONS, decode_json_object
 
 RX = 1767225600.0
 

@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from stream.wire import Decoder, encode_raw_f32
+from stream.wire import Decoder
+from stream.wire_encode import encode_raw_f32
 
 
 def _frames(n_msgs: int, size: int, seed: int = 0) -> list[list[bytes]]:

@@ -22,7 +22,7 @@ from stream.estimator import EstimatorConfig, RollingPattern
 from stream.live import LiveDriver, status_change
 from stream.monitor import Monitor
 from stream.synth import SynthConfig, run_publisher
-from stream.wire import encode_binary_batch, encode_json_single
+from stream.wire_encode import encode_binary_batch, encode_json_single
 from stream.zmq_source import ZmqSource
 
 pytestmark = pytest.mark.timeout(30)

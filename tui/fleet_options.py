@@ -23,7 +23,7 @@ from typing import Any, TextIO
 
 from stream.array_model import TAPER_NAMES, ArrayModel
 from stream.errors import InputFileError, UserError
-from stream.wire import FORMATS
+from stream.wire_format import FORMATS
 from tui.cli import UsageError
 
 #: Name of the stream given by the positional ENDPOINT when other streams are named.

@@ -69,7 +69,7 @@ def _pool(n_msgs: int = 50) -> list[tuple[np.ndarray, np.ndarray]]:
 
 def _publisher_main(conn: Any, n_streams: int, rate_sps: float) -> None:
     """Bind, report the ports, wait for subscribers, then serve ("run", seconds, url)."""
-    from stream.wire import encode_binary_batch
+    from stream.wire_encode import encode_binary_batch
     ctx = zmq.Context()
     socks = []
     ports = []

@@ -83,7 +83,7 @@ def _triangle(n: int) -> np.ndarray:
 
 
 def _pool(kind: str, small: bool = False) -> list[list[bytes]]:
-    from stream.wire import (
+    from stream.wire_encode import (
         encode_binary_batch,
         encode_json_batch,
         encode_json_single,
@@ -115,7 +115,7 @@ def _pool(kind: str, small: bool = False) -> list[list[bytes]]:
 def _stamped(rate_msgs: float, conn: Any, send: Any) -> int:
     """Binary batches of LATENCY_BATCH samples at ``rate_msgs`` messages/s, each sample's
     ``t`` the wall-clock time just before sending (the latency stream)."""
-    from stream.wire import encode_binary_batch
+    from stream.wire_encode import encode_binary_batch
     ang = _triangle(64 * LATENCY_BATCH).reshape(64, LATENCY_BATCH)
     pw = np.full(LATENCY_BATCH, -50.0)
     ones = np.ones(LATENCY_BATCH)

@@ -105,7 +105,7 @@ def _env() -> dict[str, str]:
 async def _resume_times(restarts: int) -> list[float]:
     import zmq
 
-    from stream.wire import encode_json_single
+    from stream.wire_encode import encode_json_single
     from stream.zmq_source import ZmqSource
     ep = f"tcp://127.0.0.1:{_free_port()}"
     src = ZmqSource(ep)
@@ -186,7 +186,8 @@ async def _flood(seconds: float) -> tuple[float, float]:
 
 
 def _decode_sps(runs: int) -> float:
-    from stream.wire import Decoder, encode_binary_batch
+    from stream.wire import Decoder
+    from stream.wire_encode import encode_binary_batch
     msgs = [encode_binary_batch(np.linspace(-60, 60, 1000), np.full(1000, -40.0),
                                 1.7e9 + np.arange(1000) * 1e-4, seq=i, epoch="e")
             for i in range(2000)]

@@ -10,7 +10,7 @@ from typing import Any
 
 from stream.errors import UserError
 from stream.monitor import Monitor
-from stream.wire import DEFAULT_MAX_MESSAGE_BYTES, FORMATS
+from stream.wire_format import DEFAULT_MAX_MESSAGE_BYTES, FORMATS
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
 from tui.cli import UsageError
 from tui.curve_options import add_curve_arguments, check_listen, curve_from_args, refuse_curve
