@@ -25,13 +25,8 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from replay.session import (
-    SUFFIX,
-    SessionReader,
-    SessionWriter,
-    remove_session,
-    user_file_mode,
-)
+from replay.session import SUFFIX, SessionReader
+from replay.session_writer import SessionWriter, remove_session, user_file_mode
 from stream.batch import SampleBatch
 from stream.errors import InputFileError, UserError
 

@@ -18,7 +18,7 @@ import threading
 import time
 from typing import Any
 
-from replay.session import SessionWriter
+from replay.session_writer import SessionWriter
 from stream.batch import SampleBatch
 from stream.errors import UserError
 from stream.tick import Event, Reference, Tick

@@ -23,7 +23,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from replay.session import SUFFIX, SessionWriter, default_sessions_dir, new_session_path
+from replay.session import SUFFIX
+from replay.session_writer import SessionWriter, default_sessions_dir, new_session_path
 from stream.batch import SampleBatch
 from stream.tick import Event, SourceStats
 from tui.cli import build_parser, main

@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from replay.session import SessionWriter
+from replay.session_writer import SessionWriter
 from stream.batch import SampleBatch
 from stream.live import LiveDriver
 from stream.tick import SourceStats

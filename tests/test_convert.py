@@ -26,7 +26,8 @@ from replay.convert import (
     import_file,
 )
 from replay.readers import read_sweep
-from replay.session import SessionReader, SessionWriter
+from replay.session import SessionReader
+from replay.session_writer import SessionWriter
 from stream.batch import SampleBatch
 from stream.errors import UserError
 from stream.tick import Event

@@ -17,7 +17,8 @@ import pytest
 
 from replay.player import Player
 from replay.recorder import Recorder
-from replay.session import SessionReader, SessionWriter
+from replay.session import SessionReader
+from replay.session_writer import SessionWriter
 from stream.alarms import AlarmConfig, AlarmEngine
 from stream.array_model import ArrayModel
 from stream.batch import SampleBatch

@@ -17,13 +17,8 @@ import sys
 import numpy as np
 import pytest
 
-from replay.session import (
-    APPLICATION_ID,
-    FORMAT_VERSION,
-    SessionReader,
-    SessionWriter,
-    read_all_samples,
-)
+from replay.session import APPLICATION_ID, FORMAT_VERSION, SessionReader, read_all_samples
+from replay.session_writer import SessionWriter
 from stream.batch import SampleBatch
 from stream.errors import InputFileError, UserError
 from stream.tick import Event, SourceStats
@@ -155,7 +150,7 @@ def test_killed_writer_leaves_a_readable_file_and_reader_keeps_it_intact(tmp_pat
     p = tmp_path / "k.lwsession"
     code = (
         "import os, numpy as np;"
-        "from replay.session import SessionWriter;"
+        "from replay.session_writer import SessionWriter;"
         "from stream.batch import SampleBatch;"
         f"w = SessionWriter({str(p)!r}, {{}});"
         "[w.write_batch(SampleBatch.from_arrays(np.arange(5.0), np.zeros(5), rx_t=k))"
@@ -319,7 +314,7 @@ def _write_v1(path, batches, ticks) -> None:
     con = sqlite3.connect(path, isolation_level=None)
     con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
     con.execute("PRAGMA user_version = 1")
-    shared = [x for x in s._SCHEMA.split(";") if "blocks" not in x and x.strip()]
+    shared = [x for x in s.SCHEMA.split(";") if "blocks" not in x and x.strip()]
     for stmt in shared + [x for x in s._SCHEMA_V1_BATCHES.split(";") if x.strip()]:
         con.execute(stmt)
     con.execute("INSERT INTO meta VALUES ('format_version', '1')")

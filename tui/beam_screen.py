@@ -511,7 +511,7 @@ class BeamScreen(Screen[None]):
         if tick is None or tick.metrics.peak_angle_deg is None:
             self.notify("No beam measured yet: nothing to record.", severity="warning")
             return
-        from replay.session import default_sessions_dir
+        from replay.session_writer import default_sessions_dir
         base = self.options.record_dir or str(default_sessions_dir())
         stamp = time.strftime("%Y%m%d-%H%M%S", time.localtime(tick.t))
         out_dir = f"{base}/record-{stamp}"

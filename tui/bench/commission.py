@@ -40,7 +40,7 @@ def make_session(path: str | os.PathLike[str], duration_s: float = 3600.0,
     """Write an invented session: a mount sweeping +/-60 deg back and forth across an
     ``n_elements`` array (cos^1.2 elements, half-wave spacing, 0.3 dB noise, floor
     -62 dBm), a tick every second, and a few invented alarm events."""
-    from replay.session import SessionWriter
+    from replay.session_writer import SessionWriter
     from stream.array_model import ArrayModel
     from stream.batch import SampleBatch
     from stream.tick import Event, SourceStats

@@ -56,7 +56,7 @@ def generate(path: str, n_samples: int, rate_sps: float = RATE_SPS,
              per_batch: int = PER_BATCH) -> None:
     """Write an invented session of ``n_samples`` recorded at ``rate_sps`` in batches of
     ``per_batch``, with a tick every TICK_S."""
-    from replay.session import SessionWriter
+    from replay.session_writer import SessionWriter
     with SessionWriter(path, {"notes": "invented benchmark session"},
                        synchronous="OFF") as w:
         next_tick = T0 + TICK_S

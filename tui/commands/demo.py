@@ -237,7 +237,7 @@ def _recorder_factory(args: argparse.Namespace, monitor: Monitor,
         with contextlib.suppress(ImportError, AttributeError):
             from tui.options import settings_record
             meta["settings"] = settings_record(args, monitor)
-        from replay.session import new_session_path  # the sessions folder, not the cwd
+        from replay.session_writer import new_session_path  # the sessions folder, not the cwd
         path = str(new_session_path(stem="lobewatch-demo"))
         return Recorder(path, meta).attach(monitor)
 

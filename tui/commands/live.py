@@ -158,7 +158,7 @@ def run(args: argparse.Namespace) -> int:
     if args.force and not args.record:
         raise UsageError("--force only applies with --record FILE")
     if args.record == "":  # --record without FILE: a new file in the sessions folder
-        from replay.session import new_session_path
+        from replay.session_writer import new_session_path
         args.record = str(new_session_path(getattr(args, "record_dir", None)))
         print(f"lobewatch live: recording to {args.record}", file=sys.stderr)
     monitor = build_pipeline(args)
@@ -182,7 +182,7 @@ def run(args: argparse.Namespace) -> int:
         from tui.options import beam_options_from_args, run_app
 
         def new_recording() -> Any:
-            from replay.session import new_session_path  # the sessions folder, not the cwd
+            from replay.session_writer import new_session_path  # the sessions folder, not the cwd
             path = str(new_session_path(getattr(args, "record_dir", None)))
             return _recorder(path, _metadata(args, monitor), False, monitor)
 
