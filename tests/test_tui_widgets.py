@@ -348,3 +348,10 @@ def test_a_sigma_below_the_last_digit_reads_less_than_never_zero() -> None:
     assert fmt_sigma(-11.3, 0.004, " dB") == "-11.3±<0.1 dB"
     assert fmt_sigma(26.3, 0.12, "°") == "26.3±0.1°"
     assert fmt_sigma(26.3, None, "°") == "26.3°"
+
+
+def test_a_narrow_cell_drops_the_sigma_and_keeps_value_and_unit() -> None:
+    from tui.widgets.readout import fit_value
+    assert fit_value("-12.7±<0.1 dB", 9) == "-12.7 dB"
+    assert fit_value("-12.7±0.3 dB", 9) == "-12.7 dB"
+    assert fit_value("26.3±0.1°", 9) == "26.3±0.1°"

@@ -68,7 +68,7 @@ def fit_value(text: str, width: int) -> str:
         return text
     if "±" in text:
         head, _, rest = text.partition("±")
-        unit = rest.lstrip("0123456789.")
+        unit = rest.lstrip("<0123456789.")
         text = head + unit
     return text[:width]
 
