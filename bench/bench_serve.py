@@ -26,8 +26,15 @@ def _free_port() -> int:
         return int(s.getsockname()[1])
 
 
+def _cmdline(p: psutil.Process) -> str:
+    try:
+        return " ".join(p.cmdline())
+    except (psutil.NoSuchProcess, psutil.ZombieProcess, psutil.AccessDenied):
+        return ""  # exited while being listed
+
+
 def _screens(server: psutil.Process) -> list[psutil.Process]:
-    return [p for p in server.children(recursive=True) if "tui.cli" in " ".join(p.cmdline())]
+    return [p for p in server.children(recursive=True) if "tui.cli" in _cmdline(p)]
 
 
 def measure(viewers: int, window_s: float, chromium: str) -> dict[str, float]:

@@ -27,6 +27,10 @@ if TYPE_CHECKING:
 
 #: Window over which the sample rate is averaged, seconds.
 RATE_WINDOW_S: float = 2.0
+#: The column diagnosis (a few least-squares fits, 40 ms on the demo's pattern and more on
+#: a clean one with deep nulls) runs at most this often, in tick time, s: which columns
+#: are alive does not change between sweeps, and a tick must stay short.
+DIAGNOSE_EVERY_S: float = 5.0
 
 
 class Monitor:
@@ -51,7 +55,8 @@ class Monitor:
         self.tick_sinks: list[Callable[[Tick], None]] = []
         self.event_sinks: list[Callable[[Event], None]] = []
         self._expected_hpbw = _model_hpbw(model) if model is not None else None
-        self._columns: tuple[int, object] | None = None  # (sweep count, ColumnDiagnosis)
+        #: (sweep count, tick time, ColumnDiagnosis) of the last diagnosis
+        self._columns: tuple[int, float, object] | None = None
         #: Diagnose the columns (Tick.columns) once per completed sweep when a model is
         #: set.  Off by default: a few least-squares fits per sweep are worth it on a
         #: screen, not in a fast replay or a headless run; the beam screen turns it on.
@@ -168,7 +173,7 @@ class Monitor:
             sweep_peaks_deg=peaks, sweep_peak_t=peak_t, last_sample_t=self.last_sample_t,
             source=source, target_deg=self.target_deg, tolerance_deg=self.tolerance_deg,
             reference=self.reference, expected_hpbw_deg=expected, calibrated=self.calibrated,
-            bearing=self.bearing, columns=self._column_diagnosis(snap),
+            bearing=self.bearing, columns=self._column_diagnosis(snap, t),
             radio=self.radio_text,
             age_s=(max(0.0, t - self.last_sample_t)
                    if self.last_sample_t is not None else None),
@@ -204,13 +209,15 @@ class Monitor:
         data["bearing_reference"] = conv.reference
         return replace(event, data=data)
 
-    def _column_diagnosis(self, snap: object) -> object:
-        """Column diagnosis of the pattern, recomputed only when a sweep has completed
-        since the last one (it costs a few least-squares fits); None without a model."""
+    def _column_diagnosis(self, snap: object, t: float) -> object:
+        """Column diagnosis of the pattern, recomputed when a sweep has completed since
+        the last one and ``DIAGNOSE_EVERY_S`` of tick time have passed; None without a
+        model or while off."""
         count = self.estimator.sweep_count
         if self.model is None or not self.diagnose_columns or count < 1:
             return None
-        if self._columns is None or self._columns[0] != count:
+        last = self._columns
+        if last is None or (last[0] != count and t - last[1] >= DIAGNOSE_EVERY_S):
             # Imported here: scipy.optimize costs start-up time a model-less run never needs.
             from stream.diagnosis import diagnose
             from stream.fit import FitError
@@ -218,8 +225,8 @@ class Monitor:
                 result = diagnose(snap.angle_deg, snap.power_db, self.model)
             except (FitError, ValueError):
                 result = None
-            self._columns = (count, result)
-        return self._columns[1]
+            self._columns = (count, t, result)
+        return self._columns[2]
 
 
 def _model_hpbw(model: ArrayModel) -> float | None:

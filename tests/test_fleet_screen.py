@@ -91,3 +91,23 @@ async def test_more_streams_than_rows_scroll_to_the_cursor():
         await pilot.pause()
         assert table.cursor_row == 29 and table.scroll_offset.y > 0
         assert app.screen.selected() == "s29"
+
+
+async def test_only_the_stream_on_show_pays_for_the_column_diagnosis():
+    from stream.array_model import ArrayModel
+    stations = [station(f"s{i}", seed=i) for i in range(3)]
+    for st in stations:
+        st.monitor.model = ArrayModel(4)
+    app = FleetApp(Fleet(stations), refresh_hz=0, run_fleet=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause()
+        overview = app.screen
+        assert not any(st.monitor.diagnose_columns for st in stations)
+        await pilot.press("enter")
+        await pilot.pause()
+        shown = app.screen.monitor
+        assert shown.diagnose_columns
+        assert [st.monitor.diagnose_columns for st in stations].count(True) == 1
+        await pilot.press("escape")
+        await pilot.pause()
+        assert app.screen is overview and not shown.diagnose_columns

@@ -186,10 +186,6 @@ class BeamScreen(Screen[None]):
         self.w_history.border_title = "alarm history"
         self._fill_key_bar()
         self.monitor.event_sinks.append(self._on_event)
-        # A screen has the time for the column diagnosis once per sweep (the monitor
-        # leaves it off for headless runs and fast replays); it needs the array model.
-        if self.monitor.model is not None:
-            self.monitor.diagnose_columns = True
         if self.driver is not None and self.options.run_driver:
             self.run_worker(self._drive(), name="driver", group="driver", exclusive=True,
                             exit_on_error=False)
@@ -243,6 +239,15 @@ class BeamScreen(Screen[None]):
                 rec.close()
             except Exception:  # nothing more to do on the way out
                 pass
+
+    def on_screen_resume(self) -> None:
+        # A screen on show has the time for the column diagnosis (the monitor leaves it
+        # off for headless runs and fast replays; it needs the array model); a fleet's
+        # hidden streams do not pay for it.
+        self.monitor.diagnose_columns = self.monitor.model is not None
+
+    def on_screen_suspend(self) -> None:
+        self.monitor.diagnose_columns = False
 
     def _on_event(self, event: Any) -> None:
         """Monitor event sink: keep alarm events for the next refresh (no redraw here)."""
