@@ -36,7 +36,7 @@ from stream.spec import Assessment, Spec, assess, spec_from_dict
 #: Events listed in a record at most (the newest are kept).
 MAX_EVENTS: int = 500
 
-META_KEYS: tuple[str, ...] = ("site", "array", "operator", "notes")
+META_KEYS: tuple[str, ...] = ("site", "array", "operator", "notes", "bearing")
 
 
 @dataclass(frozen=True, slots=True)
@@ -248,7 +248,25 @@ def _header_lines(asmt: Assessment, data: RecordData) -> list[tuple[str, str]]:
               else data.spec.source)]
     if m.get("notes"):
         lines.append(("Notes", str(m["notes"])))
+    bearing = _peak_bearing_text(m.get("bearing"), asmt.metrics.peak_angle_deg)
+    if bearing:
+        lines.append(("Peak bearing", bearing))
     return lines
+
+
+def _peak_bearing_text(convention: Any, peak_deg: float | None) -> str:
+    """The peak as a compass bearing when the session (or the screen) had a bearing
+    convention, with the convention, so the reader can check it; else ""."""
+    if not isinstance(convention, dict) or peak_deg is None:
+        return ""
+    from stream.bearing import BearingConvention
+    try:
+        conv = BearingConvention(**convention)
+    except (TypeError, ValueError):
+        return ""
+    return (f"{conv.bearing_deg(peak_deg):05.1f}° {conv.reference} (array angle "
+            f"{peak_deg:+.2f}°; broadside at {conv.offset_deg:g}°, angles "
+            f"{'clockwise' if conv.sense == 'cw' else 'counter-clockwise'})")
 
 
 def _suspect_text(asmt: Assessment) -> str:
@@ -413,6 +431,8 @@ def write_record_from_tick(tick: Any, model: ArrayModel | None, out_dir: str | o
     (target and tolerance from the tick; the tick's sweep peaks as the timeline; the
     reference the user captured as the baseline).  Returns the path of record.html."""
     meta = dict(meta or {})
+    if getattr(tick, "bearing", None) is not None:
+        meta.setdefault("bearing", tick.bearing.to_dict())
     spec = Spec(target_deg=tick.target_deg,
                 tolerance_deg=tick.tolerance_deg if tick.target_deg is not None else None)
     if spec.target_deg is not None and spec.tolerance_deg is None:

@@ -179,9 +179,11 @@ def test_session_input_gives_timeline_events_and_its_metadata(tmp_path, capsys):
 
 
 def test_write_record_from_tick_uses_the_same_path(tmp_path):
+    from stream.bearing import BearingConvention
     model = ArrayModel(4, element_exp=1.0)
     mon = Monitor(RollingPattern(EstimatorConfig(bin_deg=1.0)), None, model,
                   target_deg=0.0, tolerance_deg=3.0)
+    mon.bearing = BearingConvention(offset_deg=200.0)
     t = 100.0
     for sweep in range(3):
         a = np.arange(-90.0, 90.5, 1.0)
@@ -195,6 +197,11 @@ def test_write_record_from_tick_uses_the_same_path(tmp_path):
     assert path == tmp_path / "screen" / "record.html"
     rec = json.loads((tmp_path / "screen" / "record.json").read_text())
     assert rec["verdict"] == "pass" and rec["criteria"][0]["name"] == "pointing"
+    # the compass bearing of the peak, with the convention it came from
+    pk = tick.metrics.peak_angle_deg
+    md = (tmp_path / "screen" / "record.md").read_text()
+    assert f"**Peak bearing:** {(200.0 + pk) % 360.0:05.1f}° true" in md
+    assert "broadside at 200°" in md
     assert rec["meta"]["site"] == "Invented"
     _not_blank(tmp_path / "screen" / "polar.png", (640, 640))
 
