@@ -117,8 +117,10 @@ def test_one_failing_stream_does_not_stop_the_others():
     good_lists = synth_lists(3.0, seed=2)
     bad = ScriptedSource([*synth_lists(0.5, topic="x"), *synth_lists(0.5, topic="y")])
     good = ScriptedSource(good_lists)
-    a = Station("bad", monitor(), bad, interval_s=0.001, clock=StepClock())
-    b = Station("good", monitor(), good, interval_s=0.001, clock=StepClock())
+    # StepClock moves 0.5 s per readout: readouts every 50 ms of loop time keep it near
+    # the scripted data's own times (the good stream's last reading must still be fresh)
+    a = Station("bad", monitor(), bad, interval_s=0.05, clock=StepClock())
+    b = Station("good", monitor(), good, interval_s=0.05, clock=StepClock())
     statuses: list[dict] = []
     a.monitor.event_sinks.append(lambda e: statuses.append(e.data))
     fleet = Fleet([a, b])
