@@ -104,6 +104,18 @@ def _free_port() -> int:
         return int(s.getsockname()[1])
 
 
+def _describe(pids: list[int]) -> str:
+    """What the processes are doing, for a failure message."""
+    out = []
+    for pid in pids:
+        try:
+            p = psutil.Process(pid)
+            out.append(f"{pid}: {p.status()} ppid {p.ppid()} {_cmdline(p)[:80]!r}")
+        except psutil.NoSuchProcess:
+            out.append(f"{pid}: gone")
+    return "; ".join(out)
+
+
 def _gone(pids: list[int], within_s: float) -> bool:
     """Whether every pid has ended (or is a zombie) before a bounded wait runs out."""
     deadline = time.monotonic() + within_s
@@ -255,7 +267,7 @@ def test_closing_a_tab_ends_its_screen_and_sigterm_ends_the_rest(
         while not closed and time.monotonic() < deadline:
             time.sleep(0.1)
             closed = [p for p in pids if p not in [q.pid for q in _screens(proc.pid)]]
-        assert len(closed) == 1 and _gone(closed, within_s=30)
+        assert len(closed) == 1 and _gone(closed, within_s=30), _describe(closed)
         left = [p for p in pids if p not in closed]
         proc.send_signal(signal.SIGTERM)
         assert proc.wait(timeout=30) == 0
