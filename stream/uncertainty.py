@@ -92,12 +92,13 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     if x.size < 5:
         return metrics
     r = wrap180(x - pk)  # offsets from the peak, any frame
-    if not bool(np.all(r[1:] > r[:-1])):  # measure() hands them sorted unless circular
+    dr = np.diff(r)
+    if float(dr.min()) <= 0.0:  # measure() hands them sorted unless circular
         o = np.argsort(r, kind="stable")
         r, p = r[o], p[o]
+        dr = np.diff(r)
     pk_db = float(metrics.peak_power_db) if metrics.peak_power_db is not None else p.max()
-    dr = np.diff(r)
-    step = float(np.median(dr[::-(-dr.size // 512)]))  # <= 512 steps give the median
+    step = _median(dr[::-(-dr.size // 512)])  # <= 512 steps give the median
     unc: dict[str, float] = {}
     reasons = dict(metrics.reasons)
     hpbw = metrics.hpbw_deg
@@ -168,10 +169,10 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     # Side lobe level: parabola through the side lobe top minus the peak level.
     if metrics.sll_db is not None and metrics.sll_angle_deg is not None:
         e = (metrics.sll_angle_deg - pk + 180.0) % 360.0 - 180.0
-        k = int(np.abs(r - e).argmin())
+        k = _nearest(r, e)
         half = 0.5 * hpbw if hpbw is not None else 3.0 * step
-        w = np.abs(r - r[k]) <= max(0.5 * half, 1.01 * step)
-        fit_s = _poly_fit(r[w] - r[k], p[w], 2)
+        w0, w1 = _within(r, k, max(0.5 * half, 1.01 * step))
+        fit_s = _poly_fit(r[w0:w1] - r[k], p[w0:w1], 2)
         var_sl = sigma ** 2
         if fit_s is not None:
             coef, cov_unit, x_v = fit_s
@@ -204,6 +205,40 @@ def noise_sigma_db(power_db: np.ndarray, peak_db: float | None = None) -> float:
     return _MAD_TO_SIGMA * mad / np.sqrt(6.0)
 
 
+def _nearest(r: np.ndarray, e: float) -> int:
+    """Index of the sorted ``r`` nearest ``e`` (the first on a tie), as
+    ``np.abs(r - e).argmin()`` gives it, by bisection; ``r`` distinct by far more than
+    an ulp, as measure() leaves it (duplicates within 1e-9 deg merged)."""
+    j = int(np.searchsorted(r, e))
+    if j == 0:
+        return 0
+    if j == r.size or abs(float(r[j - 1]) - e) <= abs(float(r[j]) - e):
+        return j - 1
+    return j
+
+
+def _within(r: np.ndarray, k: int, h: float) -> tuple[int, int]:
+    """Slice bounds of the sorted ``r`` where ``abs(r - r[k]) <= h`` (the same test,
+    made on a bisected neighbourhood only; the run is contiguous in sorted data)."""
+    c = float(r[k])
+    lo = int(np.searchsorted(r, c - 2.0 * h))
+    hi = int(np.searchsorted(r, c + 2.0 * h, side="right"))
+    ok = np.flatnonzero(np.abs(r[lo:hi] - c) <= h)
+    return lo + int(ok[0]), lo + int(ok[-1]) + 1
+
+
+def _median(v: np.ndarray) -> float:
+    """``np.median`` of a non-empty 1-D array, the same float, by one sort: np.median's
+    checks and dispatch cost more than the work at these sizes (a few hundred steps;
+    partition is slow on the equal values of a regular grid).
+    tests/test_uncertainty.py holds it equal to np.median."""
+    srt = np.sort(v)
+    m = v.size // 2
+    if v.size % 2:
+        return float(srt[m])
+    return (float(srt[m - 1]) + float(srt[m])) / 2.0
+
+
 def _step_note(step_deg: float, hpbw_deg: float | None) -> str:
     across = f"; {hpbw_deg / step_deg:.1f} samples across the half-power beam" \
         if hpbw_deg else ""
@@ -228,14 +263,14 @@ def _poly_fit(x: np.ndarray, y: np.ndarray, deg: int
         if x.size >= 3 and deg > 2:
             return _poly_fit(x, y, 2)
         return None
-    scale = float(np.max(np.abs(x))) or 1.0
+    scale = max(abs(float(x[0])), abs(float(x[-1]))) or 1.0  # x is sorted
     u = x / scale
     a = np.vander(u, deg + 1, increasing=True)
     try:
         ata_inv = np.linalg.inv(a.T @ a)
     except np.linalg.LinAlgError:
         return None
-    c = ata_inv @ a.T @ y
+    c = ata_inv @ (a.T @ y)
     # back to unscaled x: c_k -> c_k / scale^k, covariance likewise
     s = scale ** -np.arange(deg + 1, dtype=np.float64)
     coef = c * s

@@ -12,6 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
 from scipy.optimize import brentq
 
 from stream.pattern import measure
@@ -100,3 +103,26 @@ def test_a_5_degree_hand_sweep_says_the_step_limits_the_answer():
         assert "sampling step (5 deg) limits" in notes[k], notes
         assert abs(getattr(m, k) - tr[k]) <= 2.0 * m.uncertainty[k]
     assert m.uncertainty["hpbw_deg"] > 0.3
+
+
+@given(arrays(np.float64, st.integers(1, 600),
+              elements=st.floats(-1e6, 1e6, allow_nan=False) | st.just(0.5)))
+def test_fast_median_gives_the_float_of_numpy_median(v: np.ndarray) -> None:
+    from stream.uncertainty import _median
+    assert _median(v) == float(np.median(v))  # the reference: numpy's own median
+
+
+@given(arrays(np.int64, st.integers(1, 200), elements=st.integers(-180_000, 180_000),
+              unique=True),
+       st.floats(-200, 200), st.floats(0.0, 50.0))
+def test_bisected_neighbourhoods_give_the_reference_expressions(
+        milli: np.ndarray, e: float, h: float) -> None:
+    # offsets as measure() hands them: sorted, distinct by more than its 1e-9 deg
+    # duplicate tolerance (here a 0.001 deg grid)
+    from stream.uncertainty import _nearest, _within
+    r = np.sort(milli) / 1000.0
+    k = _nearest(r, e)
+    assert k == int(np.abs(r - e).argmin())
+    lo, hi = _within(r, k, h)
+    assert np.array_equal(np.arange(r.size)[lo:hi],
+                          np.flatnonzero(np.abs(r - r[k]) <= h))
