@@ -303,8 +303,9 @@ class Decoder:
         receive time, a read-only broadcast).  Any value out of range sends the frames
         one by one through the checked path, so refusals are counted per message."""
         pairs = np.frombuffer(b"".join(frames), dtype="<f4").reshape(-1, 2)
-        a = pairs[:, 0].astype(np.float64)
-        p = pairs[:, 1].astype(np.float64)
+        with np.errstate(invalid="ignore"):  # a signalling-NaN pattern: refused as non_finite
+            a = pairs[:, 0].astype(np.float64)
+            p = pairs[:, 1].astype(np.float64)
         if not ranges_ok(a, p):
             for f in frames:
                 try:
