@@ -45,8 +45,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.optimize
-import scipy.signal
 
 #: Angle grid step used to compare the two directions' patterns, degrees.
 SHIFT_GRID_DEG: float = 0.02
@@ -224,6 +222,8 @@ def pattern_shift_deg(a_deg: np.ndarray, p_lin: np.ndarray, b_deg: np.ndarray,
         return None  # a main lobe cut by the end of a sweep would bias the shift
     p = p / np.max(p)
     q = q / np.max(q)
+    import scipy.optimize  # here: scipy is slow to import, and a lag estimate is rare
+    import scipy.signal
     c = scipy.signal.correlate(q - q.mean(), p - p.mean(), mode="full", method="fft")
     lags = scipy.signal.correlation_lags(q.size, p.size, mode="full")
     coarse_deg = float(lags[int(np.argmax(c))]) * step_deg

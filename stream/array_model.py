@@ -17,7 +17,6 @@ import warnings
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy.signal.windows import chebwin
 
 #: Level used for exact nulls so that dB values stay finite.
 FLOOR_DB: float = -120.0
@@ -40,6 +39,9 @@ def chebyshev_weights(n_elements: int, sll_db: float) -> np.ndarray:
         # scipy warns that below ~45 dB the window is poor for *spectral analysis*;
         # as an array taper any side lobe level is the textbook design.
         warnings.simplefilter("ignore", UserWarning)
+        # imported here: scipy.signal costs most of a second of start-up, and only
+        # this taper needs it
+        from scipy.signal.windows import chebwin
         w = chebwin(n, abs(float(sll_db)))
     return w / np.max(w)
 

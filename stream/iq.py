@@ -35,9 +35,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.fft
-import scipy.signal
-import scipy.stats
 
 #: Sample formats a radio may publish.
 IQ_FORMATS: tuple[str, ...] = ("cf32", "ci16")
@@ -144,6 +141,7 @@ def channel_psd(x_blocks: np.ndarray, sample_rate_hz: float,
     n = int(nperseg)
     w = _hann(n)
     seg = np.lib.stride_tricks.sliding_window_view(x_blocks, n, axis=-1)[..., ::n // 2, :]
+    import scipy.fft  # here: scipy is slow to import (start-up of every command)
     spec = scipy.fft.fft(seg * w, axis=-1)
     psd = (spec.real ** 2 + spec.imag ** 2).mean(axis=-2, dtype=np.float64)
     psd /= sample_rate_hz * float(np.sum(w.astype(np.float64) ** 2))
@@ -152,6 +150,7 @@ def channel_psd(x_blocks: np.ndarray, sample_rate_hz: float,
 
 def _hann(n: int) -> np.ndarray:
     """The periodic Hann window scipy.signal.welch uses for ``window="hann"``."""
+    import scipy.signal  # here: scipy is slow to import (start-up of every command)
     return scipy.signal.get_window("hann", n).astype(np.float32)
 
 
@@ -180,6 +179,7 @@ def channel_power(x: np.ndarray, block_len: int, sample_rate_hz: float,
         return p_chan, np.full(nb, np.nan)
     n_seg = max(1, (L - channel.nperseg) // (channel.nperseg // 2) + 1)
     dof = 2 * n_seg
+    import scipy.stats  # here: scipy is slow to import (start-up of every command)
     median_over_mean = scipy.stats.chi2.median(dof) / dof
     floor = np.median(psd[:, ~inside], axis=1) / median_over_mean * channel.bw_hz
     return p_chan, floor

@@ -54,7 +54,6 @@ from __future__ import annotations
 import functools
 
 import numpy as np
-from scipy.signal import savgol_coeffs
 
 from stream.batch import mod360, wrap180
 from stream.beam import HALF_POWER_DB, METRIC_KEYS, BeamMetrics
@@ -685,6 +684,7 @@ def _smooth(p: np.ndarray, k: int, circular: bool) -> np.ndarray:
 @functools.lru_cache(maxsize=64)
 def _savgol_weights(k: int) -> np.ndarray:
     """Quadratic Savitzky-Golay smoothing weights over ``k`` (odd) samples."""
+    from scipy.signal import savgol_coeffs  # here: scipy.signal is slow to import
     c = savgol_coeffs(k, 2)
     c.setflags(write=False)
     return c

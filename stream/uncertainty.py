@@ -56,7 +56,6 @@ from dataclasses import replace
 from functools import lru_cache
 
 import numpy as np
-from scipy.signal import savgol_coeffs
 
 from stream.batch import wrap180
 from stream.beam import HALF_POWER_DB, BeamMetrics
@@ -358,6 +357,7 @@ def _smoothing_gain(lobe_samples: int) -> float:
     k = 2 * (lobe_samples // 12) + 1
     if k < 3:
         return 1.0
+    from scipy.signal import savgol_coeffs  # here: scipy.signal is slow to import
     h = savgol_coeffs(2 * k - 1, 2)
     return float(np.sum(h * h))
 

@@ -29,7 +29,6 @@ from typing import Any
 
 import numpy as np
 import zmq
-from scipy.signal import find_peaks, savgol_filter
 
 #: -3.0103 dB: half power (10 log10 0.5).
 _HALF_DB = 10.0 * np.log10(0.5)
@@ -99,6 +98,7 @@ def hand_metrics(angle_deg: np.ndarray, power_db: np.ndarray,
     """Peak angle (deg), HPBW (deg) and side lobe level (dB re peak) of a sector
     pattern sorted by angle; ``smooth`` odd > 2 applies a quadratic Savitzky-Golay
     filter over that many samples first."""
+    from scipy.signal import find_peaks, savgol_filter  # here: keeps `lobewatch` start-up quick
     a = np.asarray(angle_deg, dtype=np.float64)
     p = np.asarray(power_db, dtype=np.float64)
     if smooth > 2:
