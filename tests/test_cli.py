@@ -202,3 +202,15 @@ def test_replay_uses_recorded_alarm_settings_unless_an_alarm_option_is_given():
     assert _given(args, ["stale_after"])
     args = build_parser().parse_args(["replay", "x" + SUFFIX, "--sll-limit-db", "-20"])
     assert _given(args, ["sll_limit_db"])
+
+
+def test_the_command_line_loads_without_scipy_or_matplotlib() -> None:
+    """`lobewatch --help` on a laptop over SSH should answer at once: scipy and
+    matplotlib (most of a second each to import) load only where they are used."""
+    import subprocess
+    import sys
+    code = ("import sys; from tui.cli import build_parser; build_parser(); "
+            "print(sorted(m for m in ('scipy', 'matplotlib', 'textual') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, timeout=120)
+    assert out.stdout.strip() == "[]"
