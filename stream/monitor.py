@@ -57,9 +57,10 @@ class Monitor:
         self._expected_hpbw = _model_hpbw(model) if model is not None else None
         #: (sweep count, tick time, ColumnDiagnosis) of the last diagnosis
         self._columns: tuple[int, float, object] | None = None
-        #: Diagnose the columns (Tick.columns) once per completed sweep when a model is
-        #: set.  Off by default: a few least-squares fits per sweep are worth it on a
-        #: screen, not in a fast replay or a headless run; the beam screen turns it on.
+        #: Diagnose the columns (Tick.columns) after a completed sweep, at most every
+        #: DIAGNOSE_EVERY_S, when a model is set.  Off by default: the fits are worth it on
+        #: a screen, not in a fast replay or a headless run; the beam screen on show turns
+        #: it on.
         self.diagnose_columns = False
         #: Latest ``radio`` event's text (the IQ front end's lag estimate), else None.
         self.radio_text: str | None = None
@@ -146,6 +147,7 @@ class Monitor:
         self.last_sample_t = None
         self.reference = None
         self._columns = None
+        self.radio_text = None
         if self.alarms is not None:
             self.alarms.reset()
 
