@@ -37,6 +37,7 @@ from stream.angle_join import AngleJoin, JoinConfig, LagEstimate
 from stream.batch import SampleBatch
 from stream.errors import UserError
 from stream.iq import ITEM_BYTES, Channel, IqReducer, decode_iq
+from stream.rx_queue import DEFAULT_QUEUE_BYTES, QueueBudget
 from stream.tick import SourceStats
 from stream.wire_format import ANGLE_MAX_DEG, ANGLE_MIN_DEG
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
@@ -89,7 +90,8 @@ class IqSource:
                  fmt: str = "cf32", block_s: float = 0.01, channel: Channel | None = None,
                  cal_db: float | None = None, join: JoinConfig | None = None,
                  bind: bool = False, iq_topic: bytes = b"", angle_topic: bytes = b"",
-                 hwm: int = DEFAULT_HWM, stale_after_s: float = 3.0,
+                 hwm: int = DEFAULT_HWM, queue_bytes: int = DEFAULT_QUEUE_BYTES,
+                 stale_after_s: float = 3.0,
                  drop_tol_s: float = DEFAULT_DROP_TOL_S,
                  clock: Callable[[], float] = time.time, stream: str = "",
                  on_lag: Callable[[float, LagEstimate], None] | None = None) -> None:
@@ -132,6 +134,8 @@ class IqSource:
         self._ctx = zmq.Context()
         self._socks: list[zmq.Socket] = []
         self._asocks: list[zmq.asyncio.Socket] = []
+        # bytes, not messages, bound each socket's queue (stream.rx_queue)
+        self._queues = [QueueBudget(queue_bytes, int(hwm)) for _ in range(2)]
         for ep, topic in ((iq_endpoint, iq_topic), (angle_endpoint, angle_topic)):
             s = self._ctx.socket(zmq.SUB)
             s.setsockopt(zmq.LINGER, 0)
@@ -146,13 +150,22 @@ class IqSource:
                                 f"{exc.strerror}; check the address") from None
 
     # -- receiving ---------------------------------------------------------------------
-    def _drain(self, s: zmq.Socket) -> list[list[bytes]]:
+    def _drain(self, k: int) -> list[list[bytes]]:
+        s = self._socks[k]
         out = []
+        biggest = 0
         for _ in range(DRAIN_MAX):
             try:
-                out.append(s.recv_multipart(zmq.NOBLOCK))
+                m = s.recv_multipart(zmq.NOBLOCK)
             except zmq.Again:
                 break
+            out.append(m)
+            size = sum(map(len, m))
+            if size > biggest:
+                biggest = size
+        mark = self._queues[k].observe(biggest)
+        if mark is not None:
+            s.setsockopt(zmq.RCVHWM, mark)
         return out
 
     def _take_angles(self, msgs: list[list[bytes]], rx: float) -> None:
@@ -242,7 +255,6 @@ class IqSource:
         poller = zmq.asyncio.Poller()
         for a in self._asocks:
             poller.register(a, zmq.POLLIN)
-        iq_sock, ang_sock = self._socks
         while not self._closed:
             try:
                 await poller.poll(200)
@@ -252,8 +264,8 @@ class IqSource:
                 raise
             if self._closed:
                 return
-            angles = self._drain(ang_sock)
-            frames = self._drain(iq_sock)
+            angles = self._drain(1)
+            frames = self._drain(0)
             rx = self._clock()  # after the drain: no frame arrived later than this
             if angles:
                 self._take_angles(angles, rx)

@@ -23,6 +23,10 @@ timer more, so the awaited-poll-then-drain design is used; a time budget per dra
 
 Robustness (figures in docs/reliability.md):
 
+* a byte budget for the receive queue (``queue_bytes``, 64 MiB): libzmq's high-water
+  mark counts messages, so the source lowers it on the live socket once it sees large
+  ones (budget / largest size, :mod:`stream.rx_queue`); a burst of large batches then
+  waits in the publisher instead of in this process;
 * options are set before connect/bind: receive high-water mark, maximum message size
   (per frame, enforced by libzmq), ZMTP heartbeats (a frozen publisher is dropped within
   ``heartbeat_timeout_ms``) and a fixed reconnect interval (no back-off:
@@ -66,6 +70,7 @@ from zmq.utils.monitor import recv_monitor_message
 from stream.batch import SampleBatch
 from stream.curve import AUTH_FAILED, HANDSHAKE_FAILED_EVENTS, CurveConfig, CurveGuard
 from stream.errors import UserError
+from stream.rx_queue import DEFAULT_QUEUE_BYTES, QueueBudget
 from stream.tick import RESTART_SHOW_S, SourceStats
 from stream.wire import Decoder, Refused
 from stream.wire_format import DEFAULT_MAX_MESSAGE_BYTES, FORMATS, MAX_PARTS
@@ -132,6 +137,7 @@ class ZmqSource:
                  poll_ms: int = 200, curve: CurveConfig | None = None,
                  drain_bytes_max: int = DEFAULT_DRAIN_BYTES,
                  shed_after_s: float = DEFAULT_SHED_AFTER_S,
+                 queue_bytes: int = DEFAULT_QUEUE_BYTES,
                  mono: Callable[[], float] = time.perf_counter) -> None:
         self.endpoint = check_endpoint(endpoint)
         if fmt not in FORMATS:
@@ -140,6 +146,8 @@ class ZmqSource:
         self.topic = topic.encode() if isinstance(topic, str) else bytes(topic)
         self.hwm = int(hwm)
         self.max_message_bytes = int(max_message_bytes)
+        # the mark actually set: from a byte budget and the sizes seen (stream.rx_queue)
+        self.queue = QueueBudget(queue_bytes, self.hwm)
         self.stale_after_s = float(stale_after_s)
         self.drain_max = int(drain_max)
         self.drain_budget_s = float(drain_budget_s)
@@ -178,7 +186,7 @@ class ZmqSource:
     def _open(self) -> None:
         s = self._ctx.socket(zmq.SUB)
         s.setsockopt(zmq.LINGER, 0)
-        s.setsockopt(zmq.RCVHWM, self.hwm)
+        s.setsockopt(zmq.RCVHWM, self.queue.hwm)
         s.setsockopt(zmq.MAXMSGSIZE, self.max_message_bytes)
         s.setsockopt(zmq.HEARTBEAT_IVL, self.heartbeat_ivl_ms)
         s.setsockopt(zmq.HEARTBEAT_TIMEOUT, self.heartbeat_timeout_ms)
@@ -324,6 +332,7 @@ class ZmqSource:
         deadline = mono() + self.drain_budget_s
         bytes_left = self.drain_bytes_max
         max_bytes = self.max_message_bytes
+        biggest = 0
         for _ in range(self.drain_max):
             try:
                 f = recv(noblock)
@@ -332,7 +341,10 @@ class ZmqSource:
                 break
             if not more(rcvmore):
                 msgs.append([f])
-                bytes_left -= len(f)
+                size = len(f)
+                bytes_left -= size
+                if size > biggest:
+                    biggest = size
             else:
                 parts: list[Any] = [f]
                 total = len(f)
@@ -358,10 +370,16 @@ class ZmqSource:
                 else:
                     msgs.append(parts)
                 bytes_left -= total
+                if total > biggest:
+                    biggest = total
                 if self._discarding:
                     break
             if bytes_left <= 0 or mono() > deadline:
                 break
+        if biggest > self.queue.largest:
+            mark = self.queue.observe(biggest)
+            if mark is not None:  # bytes, not messages, bound the queue (stream.rx_queue)
+                s.setsockopt(zmq.RCVHWM, mark)
         return msgs
 
     def _shed(self) -> int:

@@ -26,6 +26,13 @@ class UsageError(UserError):
     """Bad command-line input: printed as one line, exit status 2."""
 
 
+def queue_bytes(args: argparse.Namespace) -> int:
+    """``--queue-mb`` (MiB) as the byte budget a source gives its receive queue."""
+    from stream.rx_queue import DEFAULT_QUEUE_BYTES
+    mb = getattr(args, "queue_mb", None)
+    return DEFAULT_QUEUE_BYTES if mb is None else int(float(mb) * 2**20)
+
+
 def version_text() -> str:
     """``lobewatch X.Y.Z`` from the installed package's metadata (one source of truth:
     pyproject.toml), or a note when running from an uninstalled tree."""

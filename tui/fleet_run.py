@@ -19,7 +19,7 @@ import time
 from typing import Any, TextIO
 
 from replay.fleet import Fleet, Station
-from tui.cli import UsageError
+from tui.cli import UsageError, queue_bytes
 from tui.fleet_options import (
     StreamSpec,
     monitor_for_spec,
@@ -95,7 +95,7 @@ def build_station(spec: StreamSpec, args: argparse.Namespace, interval_s: float,
                             force=bool(args.force)).attach(monitor)
     try:
         source = ZmqSource(spec.endpoint, bind=bind, topic=spec.topic.encode(),
-                           fmt=spec.fmt or args.fmt, hwm=args.hwm,
+                           fmt=spec.fmt or args.fmt, hwm=args.hwm, queue_bytes=queue_bytes(args),
                            max_message_bytes=args.max_message_bytes,
                            stale_after_s=args.stale_after, curve=curve)
     except BaseException:

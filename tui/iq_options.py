@@ -26,7 +26,7 @@ from stream.errors import UserError
 from stream.iq import IQ_FORMATS, Channel
 from stream.synth_iq import DEFAULT_ANGLE_ENDPOINT, DEFAULT_IQ_ENDPOINT, IqSynthConfig
 from stream.tick import Event
-from tui.cli import UsageError
+from tui.cli import UsageError, queue_bytes
 
 _S = IqSynthConfig()
 
@@ -168,7 +168,8 @@ def iq_source_from_args(args: argparse.Namespace, on_lag: Any = None) -> Any:
         return IqSource(args.iq, args.angle, sample_rate_hz=args.sample_rate,
                         fmt=args.iq_format, block_s=args.block_s, channel=channel,
                         cal_db=args.cal_db, join=join, bind=args.bind,
-                        stale_after_s=args.stale_after, on_lag=on_lag)
+                        queue_bytes=queue_bytes(args), stale_after_s=args.stale_after,
+                        on_lag=on_lag)
     except ValueError as exc:
         raise UsageError(str(exc)) from None
 

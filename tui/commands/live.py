@@ -10,9 +10,10 @@ from typing import Any
 
 from stream.errors import UserError
 from stream.monitor import Monitor
+from stream.rx_queue import DEFAULT_QUEUE_BYTES
 from stream.wire_format import DEFAULT_MAX_MESSAGE_BYTES, FORMATS
 from stream.zmq_source import DEFAULT_HWM, check_endpoint
-from tui.cli import UsageError
+from tui.cli import UsageError, queue_bytes
 from tui.curve_options import add_curve_arguments, check_listen, curve_from_args, refuse_curve
 from tui.fleet_options import add_fleet_arguments, fleet_requested
 from tui.iq_options import add_iq_arguments, bearing_from_args, run_iq_live
@@ -64,6 +65,11 @@ def register(subparsers: Any) -> None:
     src.add_argument("--hwm", type=int, default=DEFAULT_HWM, metavar="N",
                      help=f"receive queue limit, messages (default {DEFAULT_HWM}); beyond it "
                           "messages are dropped and counted as lost")
+    src.add_argument("--queue-mb", type=float, default=DEFAULT_QUEUE_BYTES / 2**20, metavar="MB",
+                     help="memory the receive queue may hold, MiB (default "
+                          f"{DEFAULT_QUEUE_BYTES // 2**20}): once large messages are seen the "
+                          "queue takes fewer of them, and the rest wait in the publisher; "
+                          "0 leaves only --hwm")
     src.add_argument("--max-message-bytes", type=int, default=DEFAULT_MAX_MESSAGE_BYTES,
                      metavar="B", help="largest accepted message, bytes (default "
                                       f"{DEFAULT_MAX_MESSAGE_BYTES}); larger ones are refused")
@@ -155,6 +161,8 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError(f"--stale-after must be positive, got {args.stale_after}")
     if args.hwm < 1 or args.max_message_bytes < 64:
         raise UsageError("--hwm must be at least 1 and --max-message-bytes at least 64")
+    if not args.queue_mb >= 0:
+        raise UsageError(f"--queue-mb must be 0 or more, got {args.queue_mb}")
     if args.force and not args.record:
         raise UsageError("--force only applies with --record FILE")
     if args.record == "":  # --record without FILE: a new file in the sessions folder
@@ -172,7 +180,7 @@ def run(args: argparse.Namespace) -> int:
     source = None
     try:
         source = ZmqSource(args.endpoint, bind=args.bind, topic=args.topic.encode(),
-                           fmt=args.fmt, hwm=args.hwm,
+                           fmt=args.fmt, hwm=args.hwm, queue_bytes=queue_bytes(args),
                            max_message_bytes=args.max_message_bytes,
                            stale_after_s=args.stale_after, curve=curve)
         driver = LiveDriver(TopicGuard(source, args.endpoint), monitor, interval_s=interval)
