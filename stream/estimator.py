@@ -29,6 +29,13 @@ from stream.sweeps import SweepDetector
 #: (a fly-back, a wrap, jitter at a turning point); its samples stay with the next sweep.
 MIN_SWEEP_BINS: int = 5
 
+#: Sweeps that end less than this after the last sweep record are pooled into the next
+#: record (their bins summed, measured once), seconds.  A sweep lasting longer is
+#: recorded on its own as before; an array that sweeps its sector in a millisecond
+#: (1,000 sweeps/s) gets a record every 50 ms instead of a measurement per sweep that
+#: took half of a core and that no reader could use (the history keeps 256 records).
+MIN_RECORD_S: float = 0.05
+
 #: Smallest retreat from the furthest angle reached that counts as a direction reversal,
 #: degrees.  The working hysteresis is ``max(bin_deg / 2, MIN_REVERSAL_DEG)``, so encoder
 #: jitter of a few tenths of a degree does not split sweeps when the bins are fine.
@@ -109,7 +116,8 @@ class EstimatorConfig:
 
 @dataclass(frozen=True, slots=True)
 class SweepRecord:
-    """One completed sweep, measured on its own samples.
+    """One completed sweep, measured on its own samples (or, for sweeps faster than
+    :data:`MIN_RECORD_S`, the sweeps since the last record, pooled).
 
     ``t`` is the receive time at which the sweep was seen to end.  The sweep covers
     from ``angle_min_deg`` counter-clockwise (increasing angle) to ``angle_max_deg``,
@@ -123,6 +131,9 @@ class SweepRecord:
     peak_power_db: float | None
     angle_min_deg: float
     angle_max_deg: float
+    #: Sweeps pooled into this record (more than 1 only when sweeps end faster than
+    #: :data:`MIN_RECORD_S` apart).
+    sweeps: int = 1
 
 
 @dataclass(frozen=True, slots=True)
@@ -231,6 +242,8 @@ class RollingPattern:
         self._sw_off_bins = np.zeros(nb)              # sweep in progress: offset sum
         self._sw_lo_deg = math.inf                    # sweep in progress: range of u
         self._sw_hi_deg = -math.inf
+        self._pool: tuple[np.ndarray, np.ndarray, np.ndarray, float, float, int] | None = None
+        self._last_record_t = -math.inf               # sample time of the last record
         k = self.config.sweeps_k if not self._ema else 0
         self._ring_sum = np.zeros((k, nb))            # sweeps: last K complete sweeps
         self._ring_cnt = np.zeros((k, nb), dtype=np.int64)
@@ -298,7 +311,7 @@ class RollingPattern:
         prep = self._prepare(batch)
         if prep is None:
             return
-        a, lin, idx, off, i0, span, seam, lo, hi = prep
+        a, t, lin, idx, off, i0, span, seam, lo, hi = prep
         now = float(now)
         self._samples += int(a.shape[0])
         s, c, so = self._bin_sums(idx, lin, off, span, seam)
@@ -309,7 +322,7 @@ class RollingPattern:
             self._sw_hi_deg = max(self._sw_hi_deg, u_hi)
             self._fold_scalar(i0, s.tolist(), c.tolist(), now, so.tolist())
             return
-        self._fold_vector(u, u_lo, u_hi, b, idx, lin, off, i0, seam, s, c, so, now)
+        self._fold_vector(u, u_lo, u_hi, b, idx, lin, off, i0, seam, s, c, so, now, t)
 
     def update_many(self, batches: Sequence[SampleBatch], nows: Sequence[float]) -> None:
         """Fold in several batches in order, batch ``i`` received at ``nows[i]``.
@@ -348,19 +361,21 @@ class RollingPattern:
             i = j
 
     def _prepare(self, batch: SampleBatch) -> tuple | None:
-        """Clean angles, linear power, window-relative bin index and offset in the bin
-        (bins, -1/2 .. 1/2) of every sample, and the window: ``(a, lin, idx, off, i0,
-        span, seam, lo, hi)``, or None for a batch with no usable sample."""
+        """Clean angles and sample times, linear power, window-relative bin index and
+        offset in the bin (bins, -1/2 .. 1/2) of every sample, and the window: ``(a, t,
+        lin, idx, off, i0, span, seam, lo, hi)``, or None for a batch with no usable
+        sample."""
         # float64 throughout: the bin window relies on scalar and array index arithmetic
         # agreeing exactly (a no-op for the usual float64 arrays).
         a = np.asarray(batch.angle_deg, dtype=np.float64)
         p = np.asarray(batch.power_db, dtype=np.float64)
+        t = batch.t
         if a.shape[0] == 0:
             return None
         lo = float(a.min())
         hi = float(a.max())
         if not (-180.0 <= lo and hi < 180.0 and math.isfinite(float(p.sum()))):
-            a, p = _clean(a, p)
+            a, p, t = _clean(a, p, t)
             if a.shape[0] == 0:
                 return None
             lo = float(a.min())
@@ -385,14 +400,15 @@ class RollingPattern:
         # (0.5-degree steps in 1-degree bins) gives no bias.
         x -= idx
         x -= i0 + 0.5
-        return a, lin, idx, x, i0, i1 - i0 + 1, seam, lo, hi
+        return a, t, lin, idx, x, i0, i1 - i0 + 1, seam, lo, hi
 
     # -- fold path: vector ------------------------------------------------------------
     def _fold_vector(self, u: np.ndarray, u_lo: float, u_hi: float, b: int, idx: np.ndarray,
                      lin: np.ndarray, off: np.ndarray, i0: int, seam: bool, s: np.ndarray,
-                     c: np.ndarray, so: np.ndarray, now: float) -> None:
+                     c: np.ndarray, so: np.ndarray, now: float, t: np.ndarray) -> None:
         """Any batch: the sweep in progress gets each stretch between sweep ends (the
-        first end at ``b``, -1 for none), the averages get the whole batch's bin sums."""
+        first end at ``b``, -1 for none; ``t[b]`` the sample time there), the averages
+        get the whole batch's bin sums."""
         win = slice(i0, i0 + s.shape[0])
         if b < 0:
             self._sw_lo_deg = min(self._sw_lo_deg, u_lo)
@@ -404,7 +420,7 @@ class RollingPattern:
             while b >= 0:
                 if b > k:
                     self._add_stretch(u[k:b], idx[k:b], lin[k:b], off[k:b], win, seam)
-                self._end_sweep(now)
+                self._end_sweep(now, float(t[b]))
                 k = b
                 b = self._det.next_boundary(u, b + 1, math.nan, math.nan) if b + 1 < n else -1
             self._add_stretch(u[k:], idx[k:], lin[k:], off[k:], win, seam)
@@ -615,11 +631,12 @@ class RollingPattern:
         prep = self._prepare(batch)
         if prep is None:
             return
-        a, lin, idx, off, i0, _, seam, _, _ = prep
+        a, t, lin, idx, off, i0, _, seam, _, _ = prep
         now = float(now)
         det = self._det
         self._samples += int(a.shape[0])
         a_l, lin_l, idx_l, off_l = a.tolist(), lin.tolist(), idx.tolist(), off.tolist()
+        t_l = np.asarray(t, dtype=np.float64).tolist()
 
         def sums(lo: int, hi: int) -> dict[int, list]:
             """Touched bin -> [sum, count, offset sum], added in sample order; the
@@ -651,7 +668,7 @@ class RollingPattern:
             u = det.unwrap_one(ai)
             if det.step(u):
                 add(k, i)
-                self._end_sweep(now)
+                self._end_sweep(now, t_l[i])
                 k = i
             self._sw_lo_deg = min(self._sw_lo_deg, u)
             self._sw_hi_deg = max(self._sw_hi_deg, u)
@@ -666,25 +683,15 @@ class RollingPattern:
         self._now_max = max(self._now_max, now)
 
     # -- sweeps -----------------------------------------------------------------------
-    def _end_sweep(self, now: float) -> None:
+    def _end_sweep(self, now: float, t_end: float) -> None:
         """Close the sweep in progress: measure and record it, or, if it filled too few
         bins, keep its samples for the next sweep."""
         cnt = self._sw_cnt
         filled = np.flatnonzero(cnt)
         if filled.shape[0] < MIN_SWEEP_BINS:
             return
-        sums = self._sw_sum[filled]
-        # Each sweep is measured on its own samples, their mean angle per bin included.
-        angle = self._centres_deg[filled] + (self._sw_off_bins[filled] / cnt[filled]
-                                             * self.config.bin_width_deg)
-        power_db = 10.0 * np.log10(sums / cnt[filled])
-        metrics = measure(angle, power_db, uncertainty=False)  # peak and width suffice
-        self._history.append(SweepRecord(
-            t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
-            peak_power_db=metrics.peak_power_db, angle_min_deg=_wrap1(self._sw_lo_deg),
-            angle_max_deg=_wrap1(self._sw_hi_deg)))
         self._sweep_count += 1
-        self._det.sweep_measured(metrics.peak_angle_deg)
+        self._record(now, t_end)
         if not self._ema:
             pos = self._ring_pos
             self._ring_sum[pos] = self._sw_sum
@@ -698,6 +705,37 @@ class RollingPattern:
         self._sw_off_bins = np.zeros(self._nb)
         self._sw_lo_deg = math.inf
         self._sw_hi_deg = -math.inf
+
+    def _record(self, now: float, t_end: float) -> None:
+        """Measure the sweep just ended -- with any pooled before it -- and record it,
+        or pool it when the last record is younger than :data:`MIN_RECORD_S`.
+
+        Age is taken on the sample times (``t_end``: the first sample after the sweep),
+        so where a stream was cut into batches does not matter; sweeps with no time
+        between them (samples without times) or with time running backwards are
+        recorded one by one, as they always were."""
+        sw_sum, cnt, off = self._sw_sum, self._sw_cnt, self._sw_off_bins
+        lo, hi, n = self._sw_lo_deg, self._sw_hi_deg, 1
+        if self._pool is not None:
+            p_sum, p_cnt, p_off, p_lo, p_hi, p_n = self._pool
+            sw_sum, cnt, off = sw_sum + p_sum, cnt + p_cnt, off + p_off
+            lo, hi, n = min(lo, p_lo), max(hi, p_hi), n + p_n
+        if 0.0 < t_end - self._last_record_t < MIN_RECORD_S:
+            self._pool = (sw_sum, cnt, off, lo, hi, n)  # the next record takes them
+            return
+        self._pool = None
+        self._last_record_t = t_end
+        filled = np.flatnonzero(cnt)
+        # Each sweep is measured on its own samples, their mean angle per bin included.
+        angle = self._centres_deg[filled] + (off[filled] / cnt[filled]
+                                             * self.config.bin_width_deg)
+        power_db = 10.0 * np.log10(sw_sum[filled] / cnt[filled])
+        metrics = measure(angle, power_db, uncertainty=False)  # peak and width suffice
+        self._history.append(SweepRecord(
+            t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
+            peak_power_db=metrics.peak_power_db, angle_min_deg=_wrap1(lo),
+            angle_max_deg=_wrap1(hi), sweeps=n))
+        self._det.sweep_measured(metrics.peak_angle_deg)
 
     # -- readout ----------------------------------------------------------------------
     def _bin_angle(self, sel: np.ndarray) -> np.ndarray:
@@ -728,8 +766,10 @@ class RollingPattern:
         return PatternSnapshot(t=float(now), angle_deg=angle, power_db=power_db)
 
 
-def _clean(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Angles wrapped into [-180, 180) and samples with a non-finite value dropped.
+def _clean(a: np.ndarray, p: np.ndarray, t: np.ndarray
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Angles wrapped into [-180, 180) and samples with a non-finite value dropped
+    (with their times).
 
     Only the angles outside [-180, 180) are changed, each by ``wrap_angle_deg``, so a
     sample's wrapped value never depends on which batch it came in.
@@ -741,7 +781,8 @@ def _clean(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if not ok.all():
         a = a[ok]
         p = p[ok]
-    return a, p
+        t = np.asarray(t)[ok]
+    return a, p, t
 
 
 def _wrap1(angle_deg: float) -> float:

@@ -716,9 +716,14 @@ def test_every_fold_path_gives_the_bits_of_the_reference(
     batches: list[SampleBatch] = []
     nows: list[float] = []
     i = k = 0
+    # sample times (2e-5 s apart: sweeps a few tens of ms long, so fast ones pool into
+    # one record, stream.estimator.MIN_RECORD_S), stepping back now and then
+    t = 1.0e9 + 2e-5 * np.arange(ang.size)
+    if repeat_now:
+        t[ang.size // 2:] -= 0.03 * repeat_now
     while i < ang.size:
         n = sizes[k % len(sizes)]
-        batches.append(SampleBatch.from_arrays(ang[i:i + n], pw[i:i + n]))
+        batches.append(SampleBatch.from_arrays(ang[i:i + n], pw[i:i + n], t[i:i + n]))
         back = repeat_now and k % (repeat_now + 3) == 0
         nows.append(1.0e9 + 0.001 * (k // 2 if back else k))
         i += n
@@ -741,3 +746,64 @@ def test_the_reference_reads_the_known_sweeps_like_the_fast_paths() -> None:
     _feed(ref, ang, pw, size=333)
     assert ref.sweep_count == 2
     assert ref.sweeps[0].peak_angle_deg == pytest.approx(0.0, abs=0.1)
+
+
+def _feed_timed(est: RollingPattern, ang: np.ndarray, pw: np.ndarray, t: np.ndarray,
+                cuts: list[int]) -> None:
+    """Batches cut at ``cuts`` carrying their samples' times, each received at the time
+    of its last sample."""
+    edges = [0, *sorted(set(c for c in cuts if 0 < c < len(ang))), len(ang)]
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        est.update(SampleBatch.from_arrays(ang[lo:hi], pw[lo:hi], t[lo:hi]), float(t[hi - 1]))
+
+
+def _timed_legs(n_legs: int, leg_s: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Back-and-forth legs over -40..40 deg at 1-deg steps, each taking ``leg_s`` of
+    sample time; a dB parabola peaking at +3 deg.  (angles, powers, sample times)"""
+    turns = [-40.0 if i % 2 == 0 else 40.0 for i in range(n_legs + 1)]
+    ang, _ = _legs(turns, 1.0)
+    t = 100.0 + np.arange(ang.size) * (leg_s / 80.0)
+    return ang, -0.02 * (ang - 3.0) ** 2, t
+
+
+def test_sweeps_faster_than_min_record_s_are_pooled_and_measured_once() -> None:
+    """10 ms sweeps (100 a second): records come every MIN_RECORD_S of sample time,
+    each the pooled bins of the sweeps since the last one, measured like one sweep;
+    every sweep is still counted, and at most MIN_RECORD_S worth waits in the pool."""
+    from stream.estimator import MIN_RECORD_S
+    ang, pw, t = _timed_legs(60, 0.010)
+    est = RollingPattern(EstimatorConfig(bin_deg=1.0))
+    _feed_timed(est, ang, pw, t, list(range(0, ang.size, 97)))
+    recs = est.sweeps
+    assert est.sweep_count >= 58
+    assert len(recs) < est.sweep_count / 3
+    pooled = sum(r.sweeps for r in recs)
+    per_record = round(MIN_RECORD_S / 0.010)
+    assert est.sweep_count - per_record <= pooled <= est.sweep_count
+    assert recs[0].sweeps == 1  # the first sweep has no record before it to wait for
+    assert all(per_record <= r.sweeps <= per_record + 1 for r in recs[1:])
+    for r in recs:  # the parabola's vertex, from every pooled record
+        assert r.peak_angle_deg == pytest.approx(3.0, abs=1e-6)
+        assert (r.angle_min_deg, r.angle_max_deg) == (-40.0, 40.0)
+
+
+def test_sweeps_slower_than_min_record_s_each_get_their_own_record() -> None:
+    ang, pw, t = _timed_legs(12, 0.2)
+    est = RollingPattern(EstimatorConfig(bin_deg=1.0))
+    _feed_timed(est, ang, pw, t, list(range(0, ang.size, 97)))
+    assert len(est.sweeps) == est.sweep_count >= 10
+    assert all(r.sweeps == 1 for r in est.sweeps)
+
+
+@pytest.mark.parametrize("cuts", [[], [5, 300, 301, 2000], list(range(0, 5000, 41))])
+def test_pooling_follows_sample_times_so_batch_cuts_do_not_matter(cuts: list[int]) -> None:
+    ang, pw, t = _timed_legs(60, 0.010)
+    cfg = EstimatorConfig(bin_deg=1.0)
+    whole, split = RollingPattern(cfg), RollingPattern(cfg)
+    _feed_timed(whole, ang, pw, t, [])
+    _feed_timed(split, ang, pw, t, cuts)
+    assert split.sweep_count == whole.sweep_count
+    assert [r.sweeps for r in split.sweeps] == [r.sweeps for r in whole.sweeps]
+    for ra, rb in zip(split.sweeps, whole.sweeps, strict=True):
+        assert ra.peak_angle_deg == pytest.approx(rb.peak_angle_deg, abs=1e-9)
+        assert ra.hpbw_deg == pytest.approx(rb.hpbw_deg, abs=1e-9)
