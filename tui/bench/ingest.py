@@ -98,6 +98,8 @@ def _pool(kind: str, small: bool = False) -> list[list[bytes]]:
                 for i, (a, p) in enumerate(zip(ang.tolist(), pw.tolist(), strict=True))]
     n_msg = 64
     ang = _triangle(n_msg * BATCH).reshape(n_msg, BATCH)
+    if kind == "binary-sweeps":  # every batch one whole sweep, -60 to +60 deg
+        ang = np.broadcast_to(np.round(np.linspace(-60.0, 60.0, BATCH), 3), (n_msg, BATCH))
     out = []
     for i in range(n_msg):
         a = ang[i]
@@ -107,6 +109,9 @@ def _pool(kind: str, small: bool = False) -> list[list[bytes]]:
             out.append(encode_json_batch(a, p, t0=t0, dt=1e-4, decimals=3))
         elif kind == "raw-f32":
             out.append(encode_raw_f32(a, p))
+        elif kind == "binary-sweeps":  # stamped as sent in the paced run, 1 M samples/s
+            out.append(encode_binary_batch(a, p, 1767225600.0 + (i * BATCH + np.arange(BATCH))
+                                           * 1e-6))
         else:
             out.append(encode_binary_batch(a, p, t0 + np.arange(BATCH) * 1e-4))
     return out
@@ -140,7 +145,7 @@ def publisher_main(endpoint: str, conn: Any, small: bool = False) -> None:
     s.setsockopt(zmq.SNDHWM, 0)  # bursts are queued whole (capacity runs)
     s.setsockopt(zmq.LINGER, 0)
     s.bind(endpoint)
-    pools = {k: _pool(k, small) for k in (*KINDS, "raw-f32")}
+    pools = {k: _pool(k, small) for k in (*KINDS, "raw-f32", "binary-sweeps")}
     conn.send("ready")
     cmd: tuple = ("idle",)
     while True:
@@ -236,7 +241,8 @@ def tcp_endpoint() -> str:
 BURST = {"json-single": 150_000, "json-batch": 600, "binary": 4_000, "raw-f32": 4_000}
 #: The same for ``--quick``.
 BURST_QUICK = {"json-single": 40_000, "json-batch": 150, "binary": 1_000, "raw-f32": 1_000}
-PER_MSG = {"json-single": 1, "json-batch": BATCH, "binary": BATCH, "raw-f32": BATCH}
+PER_MSG = {"json-single": 1, "json-batch": BATCH, "binary": BATCH, "raw-f32": BATCH,
+           "binary-sweeps": BATCH}
 #: Seconds for the subscription to reach the publisher, and for a burst to land.
 SUBSCRIBE_S = 0.3
 LAND_S = 0.2
@@ -423,6 +429,8 @@ SUSTAINED = (("binary 1M sps", "binary", 1_000.0),
              ("json-single 150k msg/s", "json-single", 150_000.0))
 #: The paced run of ``lobewatch bench`` (1,000,000 samples/s).
 PACED = SUSTAINED[0]
+#: The same rate with every batch of 1,000 one whole sweep (1,000 sweeps/s).
+PACED_SWEEPS = ("binary-sweeps 1M sps", "binary-sweeps", 1_000.0)
 
 
 def run_ingest(runs: int, window: float, *, quick: bool = False,
