@@ -449,12 +449,17 @@ def run_ingest(runs: int, window: float, *, quick: bool = False,
     progress("ingest: starting the publisher process")
     results: dict[str, list[dict[str, float]]] = {}
     rss = RssSampler()  # paced and latency runs: the monitor as it runs live
+    rss_sweeps = RssSampler()  # paced whole-sweep batches (noisy sweeps load scipy.signal)
     rss_burst = RssSampler()  # capacity runs: the whole burst waits in the socket queue
+    sweep_runs = tuple(r for r in sustained_runs if r[1] == "binary-sweeps")
     with Publisher(endpoint, small=quick) as pub:
         # Paced and latency runs first: the resident size they show is not inflated by
-        # the heap the queued bursts leave behind.
+        # the heap the queued bursts leave behind; the whole-sweep runs after them, as
+        # measuring noisy sweeps imports scipy.signal (about 70 MB resident).
         for r in range(runs):
             for label, kind, rate in sustained_runs:
+                if kind == "binary-sweeps":
+                    continue
                 progress(f"ingest: paced {label} for {window:g} s (run {r + 1}/{runs})")
                 res = asyncio.run(sustained(pub, endpoint, kind, rate, window, rss))
                 results.setdefault(label, []).append(res)
@@ -463,6 +468,11 @@ def run_ingest(runs: int, window: float, *, quick: bool = False,
             res = asyncio.run(latency(pub, endpoint, latency_sps / LATENCY_BATCH, latency_s,
                                       rss))
             results["latency"] = [res]
+        for r in range(runs):
+            for label, kind, rate in sweep_runs:
+                progress(f"ingest: paced {label} for {window:g} s (run {r + 1}/{runs})")
+                res = asyncio.run(sustained(pub, endpoint, kind, rate, window, rss_sweeps))
+                results.setdefault(label, []).append(res)
         for r in range(runs):
             for kind in KINDS:
                 for mode in modes:
@@ -480,6 +490,7 @@ def run_ingest(runs: int, window: float, *, quick: bool = False,
     for key, rs in results.items():
         med[key] = {k: median(r[k] for r in rs) for k in rs[0]}
     med["rss_peak_mb"] = rss.peak_mb
+    med["rss_sweeps_peak_mb"] = rss_sweeps.peak_mb
     med["rss_burst_peak_mb"] = rss_burst.peak_mb
     return med
 

@@ -35,7 +35,7 @@ GROUP_FIGURES: dict[str, tuple[str, ...]] = {
     "ingest": ("ingest_binary_sps", "ingest_binary_raw_sps", "ingest_json_batch_sps",
                "ingest_json_batch_raw_sps", "ingest_json_msgs", "ingest_json_raw_msgs",
                "ingest_json_decode_msgs", "ingest_json_decode_ratio", "ingest_paced_cpu_pct",
-               "ingest_sweeps_cpu_pct",
+               "ingest_sweeps_cpu_pct", "ingest_sweeps_rss_mb",
                "ingest_paced_lost", "rss_mb", "rss_burst_mb"),
     "latency": ("latency_p50_ms", "latency_p99_ms"),
     "redraw": ("redraw_median_ms", "redraw_p99_ms"),
@@ -57,6 +57,8 @@ TARGET_BINARY_SPS = 10_000_000.0
 TARGET_PACED_CPU_PCT = 25.0
 #: 1 M samples/s when every batch is one whole sweep, % of one core (issue target).
 TARGET_SWEEPS_CPU_PCT = 50.0
+#: Peak resident size in that run, MB (issue target).
+TARGET_SWEEPS_RSS_MB = 250.0
 TARGET_JSON_MSGS = 150_000.0
 TARGET_JSON_RATIO = 0.5
 TARGET_LATENCY_P99_MS = 50.0
@@ -165,6 +167,10 @@ def _ingest(plan: Plan, quick: bool, progress: Progress, *, ingest: bool,
                                             TARGET_SWEEPS_CPU_PCT, higher_is_better=False,
                                             note="the same rate, each batch one whole sweep "
                                                  f"(1,000 sweeps/s); lost {sweeps['lost']:,.0f}"),
+            "ingest_sweeps_rss_mb": figure(med["rss_sweeps_peak_mb"], "MB",
+                                           TARGET_SWEEPS_RSS_MB, higher_is_better=False,
+                                           note="peak resident size in that run "
+                                                "(scipy.signal loaded)"),
             "ingest_paced_lost": figure(paced["lost"], "msgs", 0.0, higher_is_better=False,
                                         note=f"of {paced['sent']:,.0f} sent"),
             "rss_mb": figure(med["rss_peak_mb"], "MB", TARGET_RSS_MB, higher_is_better=False,
