@@ -276,8 +276,7 @@ def _suspect_text(asmt: Assessment) -> str:
     if not c.suspects:
         return "No dead or weak column found."
     return ("Suspect columns (a power pattern cannot tell column k from its mirror "
-            "N+1-k): " + "; ".join(" or ".join(str(k) for k in s) + f" ({kind})"
-                                   for s, kind in zip(c.suspects, c.kinds, strict=True)) + ".")
+            "N+1-k): " + "; ".join(c.suspect_parts()) + ".")
 
 
 def render_markdown(asmt: Assessment, data: RecordData, images: dict[str, str]) -> str:

@@ -90,9 +90,21 @@ class ColumnDiagnosis:
         text = f"{self.elements_effective:.1f} of {n} columns"
         if not self.suspects:
             return text + "; no suspect"
-        parts = [(" or ".join(str(c) for c in s)) + f" ({k})"
-                 for s, k in zip(self.suspects, self.kinds, strict=True)]
-        return text + "; suspect " + ", ".join(parts)
+        return text + "; suspect " + ", ".join(self.suspect_parts())
+
+    def suspect_parts(self) -> list[str]:
+        """The suspects as phrases: a mirror pair ``2 or 3 (dead)``; columns found low
+        on their own, of one kind, together: ``1 and 4 (dead)``."""
+        alone: dict[str, list[int]] = {}
+        parts: list[tuple[int, str]] = []
+        for s, k in zip(self.suspects, self.kinds, strict=True):
+            if len(s) == 1:
+                alone.setdefault(k, []).append(s[0])
+            else:
+                parts.append((min(s), " or ".join(str(c) for c in s) + f" ({k})"))
+        for k, cols in alone.items():
+            parts.append((min(cols), " and ".join(str(c) for c in sorted(cols)) + f" ({k})"))
+        return [text for _, text in sorted(parts)]
 
 
 def mirror_pairs(n_elements: int) -> list[list[int]]:

@@ -118,3 +118,16 @@ def test_monitor_puts_the_diagnosis_on_ticks_per_sweep_at_most_every_few_seconds
     from stream.monitor import DIAGNOSE_EVERY_S
     assert DIAGNOSE_EVERY_S == 5.0
     assert len({id(c) for c in seen if c is not None}) == 2
+
+
+@pytest.mark.parametrize(("suspects", "kinds", "text"), [
+    ([[1, 4]], ["dead"], "suspect 1 or 4 (dead)"),
+    # one live column of four: 1 and 4 are both low, and one of the mirror pair 2/3
+    ([[1], [4], [2, 3]], ["dead"] * 3, "suspect 1 and 4 (dead), 2 or 3 (dead)"),
+    ([[2, 3], [1]], ["weak", "dead"], "suspect 1 (dead), 2 or 3 (weak)"),
+    ([], [], "no suspect"),
+])
+def test_summary_groups_lone_columns_and_keeps_mirror_pairs_as_either_or(
+        suspects: list[list[int]], kinds: list[str], text: str) -> None:
+    d = ColumnDiagnosis([1.0] * 4, 4.0, suspects, kinds)
+    assert d.summary().endswith(text)
