@@ -214,3 +214,15 @@ def test_the_command_line_loads_without_scipy_or_matplotlib() -> None:
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True, timeout=120)
     assert out.stdout.strip() == "[]"
+
+
+def test_queue_mb_is_checked_and_converted_to_bytes(capsys):
+    import argparse
+
+    from tui.cli import queue_bytes
+    assert main(["live", "tcp://127.0.0.1:9", "--queue-mb", "-1"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "--queue-mb must be 0 or more" in err
+    assert queue_bytes(argparse.Namespace(queue_mb=0.5)) == 512 * 1024
+    assert queue_bytes(argparse.Namespace(queue_mb=0)) == 0  # only --hwm then
+    assert queue_bytes(argparse.Namespace()) == 64 * 2**20  # commands without the option
