@@ -90,7 +90,8 @@ def test_synth_iq_then_live_iq_headless_finds_the_beam_and_the_lag() -> None:
     # the receive latency (a few ms on loopback under load)
     assert radio[-1]["lag_s"] == pytest.approx(0.06, abs=0.015)
     m = [r for r in recs if r["type"] == "metrics"][-1]
-    assert m["peak_angle_deg"] == pytest.approx(8.0, abs=1.0)
+    assert m["peak_angle_deg"] == pytest.approx(8.0, abs=1.0), (
+        f"last readout {m}; the lines before it: {recs[-6:-1]}")
     # calibrated: peak -12 dBFS + (-30) dB = -42 dBm
     assert m["peak_power_db"] == pytest.approx(-42.0, abs=0.5)
     # ccw from 90: bearing = 90 - angle
