@@ -156,33 +156,8 @@ async def bench_frames(frames: int, size: tuple[int, int],
     return out
 
 
-#: A light paced publisher for the live measurement: one sweep of the textbook 8-element
-#: pattern is computed once, then sent as wire-format binary batches of 1000 samples at
-#: 1000 messages/s (1,000,000 samples/s) with fresh seq and times, so the publisher's own
-#: CPU does not limit the rate on a 2-core machine (the full simulator costs more).
-PACED_PUBLISHER = r"""
-import sys, time, secrets
-import numpy as np, zmq
-from stream.array_model import ArrayModel
-from stream.wire_encode import encode_binary_batch
-endpoint, duration = sys.argv[1], float(sys.argv[2])
-ctx = zmq.Context(); sock = ctx.socket(zmq.PUB); sock.setsockopt(zmq.LINGER, 0)
-sock.setsockopt(zmq.SNDHWM, 100000); sock.bind(endpoint)
-a = np.concatenate((np.linspace(-60, 60, 5000), np.linspace(60, -60, 5000)))
-rng = np.random.default_rng(1)
-p = ArrayModel(8, 0.5).power_db(a) - 40.0 + rng.normal(0, 0.3, a.size)
-chunks = [(a[i:i + 1000], p[i:i + 1000]) for i in range(0, a.size, 1000)]
-epoch = secrets.token_hex(4); seq = 0; start = time.time(); dt = np.arange(1000) * 1e-6
-while time.time() - start < duration:
-    due = int((time.time() - start) * 1000)
-    while seq < due:
-        ca, cp = chunks[seq % len(chunks)]
-        t = start + seq * 1e-3 + dt
-        sock.send_multipart(encode_binary_batch(ca, cp, t, seq, epoch))
-        seq += 1
-    time.sleep(0.001)
-sock.close(0); ctx.term()
-"""
+#: The paced 1 M samples/s publisher of ``lobewatch bench``'s ``app_cpu_pct``.
+from tui.bench.app_cpu import PACED_PUBLISHER  # noqa: E402
 
 
 def free_port() -> int:
@@ -233,20 +208,13 @@ async def bench_live(seconds: float, size: tuple[int, int]) -> dict[str, float]:
         src = ZmqSource(endpoint, stale_after_s=3.0)
         drv = LiveDriver(src, mon, interval_s=0.1)
         app = LobewatchApp(mon, drv, mode="live", refresh_hz=10.0)
-        calls = [0]
-        orig = app.refresh_view
-
-        def counted() -> None:
-            calls[0] += 1
-            orig()
-
-        app.refresh_view = counted  # type: ignore[method-assign]
         async with app.run_test(size=size) as pilot:
-            app.pace_gc()  # as in a real terminal
+            app.pace_gc()  # as in a real terminal; its pacer counts the frames
+            frames = app.gc_pacer
             await pilot.pause(2.0)
-            s0, c0, w0, k0 = mon.estimator.samples, cpu(), time.perf_counter(), calls[0]
+            s0, c0, w0, k0 = mon.estimator.samples, cpu(), time.perf_counter(), frames.frames
             await asyncio.sleep(seconds)
-            s1, c1, w1, k1 = mon.estimator.samples, cpu(), time.perf_counter(), calls[0]
+            s1, c1, w1, k1 = mon.estimator.samples, cpu(), time.perf_counter(), frames.frames
             res["ui_cpu"] = (c1 - c0) / (w1 - w0)
             res["ui_rate"] = (s1 - s0) / (w1 - w0)
             res["refresh_hz"] = (k1 - k0) / (w1 - w0)
