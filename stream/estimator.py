@@ -15,26 +15,18 @@ from __future__ import annotations
 
 import math
 import numbers
-from collections import deque
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
 from stream.batch import SampleBatch, wrap_angle_deg
-from stream.pattern import measure
+from stream.sweep_log import SweepLog, SweepRecord
 from stream.sweeps import SweepDetector
 
 #: A completed sweep whose samples fill fewer distinct bins than this is not a sweep
 #: (a fly-back, a wrap, jitter at a turning point); its samples stay with the next sweep.
 MIN_SWEEP_BINS: int = 5
-
-#: Sweeps that end less than this after the last sweep record are pooled into the next
-#: record (their bins summed, measured once), seconds.  A sweep lasting longer is
-#: recorded on its own as before; an array that sweeps its sector in a millisecond
-#: (1,000 sweeps/s) gets a record every 50 ms instead of a measurement per sweep that
-#: took half of a core and that no reader could use (the history keeps 256 records).
-MIN_RECORD_S: float = 0.05
 
 #: Smallest retreat from the furthest angle reached that counts as a direction reversal,
 #: degrees.  The working hysteresis is ``max(bin_deg / 2, MIN_REVERSAL_DEG)``, so encoder
@@ -115,28 +107,6 @@ class EstimatorConfig:
 
 
 @dataclass(frozen=True, slots=True)
-class SweepRecord:
-    """One completed sweep, measured on its own samples (or, for sweeps faster than
-    :data:`MIN_RECORD_S`, the sweeps since the last record, pooled).
-
-    ``t`` is the receive time at which the sweep was seen to end.  The sweep covers
-    from ``angle_min_deg`` counter-clockwise (increasing angle) to ``angle_max_deg``,
-    both wrapped to [-180, 180): when it crosses the +-180 seam, ``angle_max_deg`` is
-    the smaller number (150 .. -150 is a 60 deg sector facing 180).
-    """
-
-    t: float
-    peak_angle_deg: float | None
-    hpbw_deg: float | None
-    peak_power_db: float | None
-    angle_min_deg: float
-    angle_max_deg: float
-    #: Sweeps pooled into this record (more than 1 only when sweeps end faster than
-    #: :data:`MIN_RECORD_S` apart).
-    sweeps: int = 1
-
-
-@dataclass(frozen=True, slots=True)
 class PatternSnapshot:
     """The valid bins at time ``t``: centres sorted ascending in [-180, 180), power in dB
     (dBm when the input was calibrated), both float64 and owned by the snapshot."""
@@ -147,25 +117,6 @@ class PatternSnapshot:
 
     def __len__(self) -> int:
         return int(self.angle_deg.shape[0])
-
-
-def circular_std_deg(angle_deg: Sequence[float] | np.ndarray) -> float | None:
-    """Sample standard deviation (ddof = 1) of angles, safe across the +-180 wrap.
-
-    Each angle is replaced by its wrapped offset from the circular mean direction
-    atan2(mean sin, mean cos) (N. I. Fisher, *Statistical Analysis of Circular Data*,
-    CUP 1993, sec. 2.2 -- from memory), and the ordinary sample standard deviation of the
-    offsets is returned.  For angles that do not straddle the wrap it equals
-    ``numpy.std(angle_deg, ddof=1)`` exactly up to rounding.  ``None`` for fewer than two.
-    """
-    a = np.asarray(angle_deg, dtype=np.float64).reshape(-1)
-    a = a[np.isfinite(a)]
-    if a.size < 2:
-        return None
-    r = np.deg2rad(a)
-    mean_dir = math.degrees(math.atan2(float(np.mean(np.sin(r))), float(np.mean(np.cos(r)))))
-    dev = wrap_angle_deg(a - mean_dir)
-    return float(np.std(dev, ddof=1))
 
 
 class RollingPattern:
@@ -242,8 +193,6 @@ class RollingPattern:
         self._sw_off_bins = np.zeros(nb)              # sweep in progress: offset sum
         self._sw_lo_deg = math.inf                    # sweep in progress: range of u
         self._sw_hi_deg = -math.inf
-        self._pool: tuple[np.ndarray, np.ndarray, np.ndarray, float, float, int] | None = None
-        self._last_record_t = -math.inf               # sample time of the last record
         k = self.config.sweeps_k if not self._ema else 0
         self._ring_sum = np.zeros((k, nb))            # sweeps: last K complete sweeps
         self._ring_cnt = np.zeros((k, nb), dtype=np.int64)
@@ -254,10 +203,9 @@ class RollingPattern:
         self._off_cnt = np.zeros(nb)                  # (in bins) and their count
         self._now_max = -math.inf                     # latest receive time seen, Unix s
         self._det = SweepDetector(self._hysteresis_deg)
-        self._history: deque[SweepRecord] = deque(maxlen=self.config.history)
-        self._sweep_count = 0
+        self._log = SweepLog(self._centres_deg, self.config.bin_width_deg,
+                             self.config.history)
         self._samples = 0
-        self._spread_cache: tuple[tuple[int, int, int], float | None] | None = None
 
     @property
     def samples(self) -> int:
@@ -267,12 +215,12 @@ class RollingPattern:
     @property
     def sweep_count(self) -> int:
         """Sweeps completed since the start or the last reset (not bounded by history)."""
-        return self._sweep_count
+        return self._log.count
 
     @property
     def sweeps(self) -> tuple[SweepRecord, ...]:
         """The most recent sweep records, oldest first, at most ``config.history``."""
-        return tuple(self._history)
+        return self._log.records
 
     @property
     def bin_centres_deg(self) -> np.ndarray:
@@ -281,21 +229,9 @@ class RollingPattern:
 
     def peak_angle_spread_deg(self, n: int = 8) -> float | None:
         """Sample standard deviation of the peak angle over the last ``n`` sweeps that had
-        a peak (circular-safe, see :func:`circular_std_deg`); ``None`` when fewer than 2."""
-        if n < 2:
-            return None
-        key = (self._sweep_count, len(self._history), n)
-        if self._spread_cache is not None and self._spread_cache[0] == key:
-            return self._spread_cache[1]  # no sweep ended since: the same answer
-        peaks: list[float] = []
-        for rec in reversed(self._history):
-            if rec.peak_angle_deg is not None:
-                peaks.append(rec.peak_angle_deg)
-                if len(peaks) == n:
-                    break
-        spread = circular_std_deg(peaks)
-        self._spread_cache = (key, spread)
-        return spread
+        a peak (circular-safe, see :func:`stream.sweep_log.circular_std_deg`); ``None``
+        when fewer than 2."""
+        return self._log.peak_angle_spread_deg(n)
 
     # -- data in: the one place a fold path is chosen ---------------------------------
     def _fold_path_allowed(self, path: str) -> bool:
@@ -684,14 +620,17 @@ class RollingPattern:
 
     # -- sweeps -----------------------------------------------------------------------
     def _end_sweep(self, now: float, t_end: float) -> None:
-        """Close the sweep in progress: measure and record it, or, if it filled too few
-        bins, keep its samples for the next sweep."""
+        """Close the sweep in progress: count, measure and record it (the sweep log pools
+        sweeps faster than ``MIN_RECORD_S``), or, if it filled too few bins, keep its
+        samples for the next sweep."""
         cnt = self._sw_cnt
         filled = np.flatnonzero(cnt)
         if filled.shape[0] < MIN_SWEEP_BINS:
             return
-        self._sweep_count += 1
-        self._record(now, t_end)
+        recorded, peak = self._log.close(self._sw_sum, cnt, self._sw_off_bins,
+                                         self._sw_lo_deg, self._sw_hi_deg, now, t_end)
+        if recorded:
+            self._det.sweep_measured(peak)
         if not self._ema:
             pos = self._ring_pos
             self._ring_sum[pos] = self._sw_sum
@@ -705,37 +644,6 @@ class RollingPattern:
         self._sw_off_bins = np.zeros(self._nb)
         self._sw_lo_deg = math.inf
         self._sw_hi_deg = -math.inf
-
-    def _record(self, now: float, t_end: float) -> None:
-        """Measure the sweep just ended -- with any pooled before it -- and record it,
-        or pool it when the last record is younger than :data:`MIN_RECORD_S`.
-
-        Age is taken on the sample times (``t_end``: the first sample after the sweep),
-        so where a stream was cut into batches does not matter; sweeps with no time
-        between them (samples without times) or with time running backwards are
-        recorded one by one, as they always were."""
-        sw_sum, cnt, off = self._sw_sum, self._sw_cnt, self._sw_off_bins
-        lo, hi, n = self._sw_lo_deg, self._sw_hi_deg, 1
-        if self._pool is not None:
-            p_sum, p_cnt, p_off, p_lo, p_hi, p_n = self._pool
-            sw_sum, cnt, off = sw_sum + p_sum, cnt + p_cnt, off + p_off
-            lo, hi, n = min(lo, p_lo), max(hi, p_hi), n + p_n
-        if 0.0 < t_end - self._last_record_t < MIN_RECORD_S:
-            self._pool = (sw_sum, cnt, off, lo, hi, n)  # the next record takes them
-            return
-        self._pool = None
-        self._last_record_t = t_end
-        filled = np.flatnonzero(cnt)
-        # Each sweep is measured on its own samples, their mean angle per bin included.
-        angle = self._centres_deg[filled] + (off[filled] / cnt[filled]
-                                             * self.config.bin_width_deg)
-        power_db = 10.0 * np.log10(sw_sum[filled] / cnt[filled])
-        metrics = measure(angle, power_db, uncertainty=False)  # peak and width suffice
-        self._history.append(SweepRecord(
-            t=now, peak_angle_deg=metrics.peak_angle_deg, hpbw_deg=metrics.hpbw_deg,
-            peak_power_db=metrics.peak_power_db, angle_min_deg=_wrap1(lo),
-            angle_max_deg=_wrap1(hi), sweeps=n))
-        self._det.sweep_measured(metrics.peak_angle_deg)
 
     # -- readout ----------------------------------------------------------------------
     def _bin_angle(self, sel: np.ndarray) -> np.ndarray:
@@ -783,12 +691,6 @@ def _clean(a: np.ndarray, p: np.ndarray, t: np.ndarray
         p = p[ok]
         t = np.asarray(t)[ok]
     return a, p, t
-
-
-def _wrap1(angle_deg: float) -> float:
-    """One angle into [-180, 180), unchanged when already there."""
-    return angle_deg if -180.0 <= angle_deg < 180.0 else float(wrap_angle_deg(angle_deg))
-
 
 
 def _window(lo_deg: float, hi_deg: float, bins_per_deg: float, c0_bins: float) -> tuple[int, int]:

@@ -29,10 +29,9 @@ from stream.estimator import (
     EstimatorConfig,
     PatternSnapshot,
     RollingPattern,
-    SweepRecord,
-    circular_std_deg,
 )
 from stream.pattern import measure
+from stream.sweep_log import SweepRecord, circular_std_deg
 from stream.sweeps import SweepDetector
 
 # -- helpers -------------------------------------------------------------------------
@@ -717,7 +716,7 @@ def test_every_fold_path_gives_the_bits_of_the_reference(
     nows: list[float] = []
     i = k = 0
     # sample times (2e-5 s apart: sweeps a few tens of ms long, so fast ones pool into
-    # one record, stream.estimator.MIN_RECORD_S), stepping back now and then
+    # one record, stream.sweep_log.MIN_RECORD_S), stepping back now and then
     t = 1.0e9 + 2e-5 * np.arange(ang.size)
     if repeat_now:
         t[ang.size // 2:] -= 0.03 * repeat_now
@@ -770,7 +769,7 @@ def test_sweeps_faster_than_min_record_s_are_pooled_and_measured_once() -> None:
     """10 ms sweeps (100 a second): records come every MIN_RECORD_S of sample time,
     each the pooled bins of the sweeps since the last one, measured like one sweep;
     every sweep is still counted, and at most MIN_RECORD_S worth waits in the pool."""
-    from stream.estimator import MIN_RECORD_S
+    from stream.sweep_log import MIN_RECORD_S
     ang, pw, t = _timed_legs(60, 0.010)
     est = RollingPattern(EstimatorConfig(bin_deg=1.0))
     _feed_timed(est, ang, pw, t, list(range(0, ang.size, 97)))
