@@ -29,7 +29,8 @@ from collections.abc import AsyncIterator, Callable, Iterable
 from dataclasses import dataclass, replace
 from typing import Any
 
-from stream.alarms import SEVERITY_RANK, AlarmStatus
+from stream.alarm_config import SEVERITY_RANK
+from stream.alarms import AlarmStatus
 from stream.batch import SampleBatch
 from stream.errors import UserError
 from stream.live import LiveDriver, LiveSource

@@ -20,14 +20,8 @@ import time
 import numpy as np
 import pytest
 
-from stream.alarms import (
-    RULES,
-    SEVERITIES,
-    AlarmConfig,
-    AlarmEngine,
-    severity_at_least,
-    watch_key,
-)
+from stream.alarm_config import RULES, SEVERITIES, AlarmConfig, severity_at_least
+from stream.alarms import AlarmEngine, watch_key
 from stream.beam import BeamMetrics
 from stream.errors import UserError
 from stream.tick import Reference, SourceStats, Tick

@@ -17,7 +17,7 @@ from dataclasses import dataclass, fields
 from pathlib import Path
 from typing import Any
 
-from stream.alarms import RULES, SEVERITIES, AlarmConfig
+from stream.alarm_config import RULES, SEVERITIES, AlarmConfig
 from stream.errors import InputFileError, UserError
 
 #: Keys of each rule's TOML table -> AlarmConfig field.  Every rule table also accepts

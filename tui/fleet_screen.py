@@ -27,7 +27,7 @@ from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Static
 
 from replay.fleet import FAILED, Fleet, Station
-from stream.alarms import SEVERITY_RANK
+from stream.alarm_config import SEVERITY_RANK
 from tui.beam_screen import BeamOptions, BeamScreen
 from tui.exporter import pointing_error_deg
 

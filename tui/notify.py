@@ -24,7 +24,7 @@ import threading
 from collections.abc import Callable
 from typing import Any
 
-from stream.alarms import severity_at_least
+from stream.alarm_config import severity_at_least
 from stream.errors import UserError
 from stream.tick import Event
 
