@@ -52,6 +52,7 @@ beam at +/-180 deg is one lobe.
 from __future__ import annotations
 
 import functools
+import math
 
 import numpy as np
 
@@ -162,8 +163,8 @@ def _frame_or_reason(angle_deg: np.ndarray, power_db: np.ndarray) -> _Frame | Be
         raise ValueError(f"angle_deg has shape {a.shape} but power_db has shape {p.shape}")
     a = a.reshape(-1)
     p = p.reshape(-1)
-    ok = np.isfinite(a) & np.isfinite(p)
-    if not ok.all():
+    if not math.isfinite(float(a.sum()) + float(p.sum())):  # a NaN or inf somewhere
+        ok = np.isfinite(a) & np.isfinite(p)
         a = a[ok]
         p = p[ok]
     if a.size < 3:
@@ -190,7 +191,7 @@ def _frame_or_reason(angle_deg: np.ndarray, power_db: np.ndarray) -> _Frame | Be
     x_pk = float(x[i])
     if circular:
         r, pr = _sort_by(wrap180(x - x_pk), p)
-        ic = int(np.searchsorted(r, 0.0))
+        ic = int(r.searchsorted(0.0))
     else:
         r = x - x_pk
         pr = p
@@ -244,7 +245,7 @@ def _noisy_pass(f: _Frame, fit: _Fit) -> None:
             ps = _smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
             k_done = k
         j = int(np.abs(r - v_r).argmin())
-        rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / np.sqrt(k))
+        rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / math.sqrt(k))
         right, left, k_sl, sl_edge = _lobes(r, ps, j, pk_db, rise, circular)
         # Offsets from sample j -> offsets from the peak sample.
         right.shift(float(r[j]))
@@ -367,23 +368,25 @@ def _frame(a: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool, 
     Returns ``(x, p, circular, report_wrapped)`` with ``x`` strictly increasing.
     """
     w = mod360(a)
-    if w[-1] >= 360.0 or (w >= 360.0).any():  # a tiny negative angle rounds to 360.0
+    if w is not a and np.count_nonzero(w >= 360.0):  # a tiny negative angle rounds to 360
         w = np.where(w >= 360.0, 0.0, w)  # it is 0
     ws, ps = _sort_by(w, p)
     # Merge duplicate angles in linear power.
-    d = np.diff(ws)
-    new = np.concatenate(([True], d > DUPLICATE_TOL_DEG))
-    if not new.all():
+    d = ws[1:] - ws[:-1]
+    merge = np.count_nonzero(d <= DUPLICATE_TOL_DEG)
+    if merge:
+        new = np.concatenate(([True], d > DUPLICATE_TOL_DEG))
         grp = np.cumsum(new) - 1
         lin = np.bincount(grp, weights=10.0 ** (ps / 10.0))
         cnt = np.bincount(grp)
         ps = 10.0 * np.log10(lin / cnt)
         ws = ws[new]
+        d = ws[1:] - ws[:-1]
     n = ws.size
     if n < 3:
         return ws, ps, False, True
     gaps = np.empty(n)
-    gaps[:-1] = np.diff(ws)
+    gaps[:-1] = d
     gaps[-1] = ws[0] + 360.0 - ws[-1]
     g = int(gaps.argmax())
     typical = (360.0 - gaps[g]) / (n - 1)  # mean step without the largest gap
@@ -409,7 +412,7 @@ def _sort_by(x: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     with no equal values it is the only ascending order, so the result is argsort's."""
     k = int(x.argmin())
     xs = np.concatenate((x[k:], x[:k])) if k else x
-    if (xs[1:] > xs[:-1]).all():
+    if not np.count_nonzero(xs[1:] <= xs[:-1]):  # no NaN here: the same as all(>)
         return xs, (np.concatenate((p[k:], p[:k])) if k else p)
     o = np.argsort(x, kind="stable")
     return x[o], p[o]
@@ -431,8 +434,8 @@ def _vertex(r: np.ndarray, p: np.ndarray, k: int, circular: bool) -> tuple[float
             return float(r[k]), float(p[k])
         km, kp = k - 1, k + 1
         x0, x2 = r[km], r[kp]
-    x1 = r[k]
-    y0, y1, y2 = p[km], p[k], p[kp]
+    x0, x1, x2 = float(x0), float(r[k]), float(x2)  # Python floats: a dozen scalar ops
+    y0, y1, y2 = float(p[km]), float(p[k]), float(p[kp])
     d1 = (y1 - y0) / (x1 - x0)
     d2 = (y2 - y1) / (x2 - x1)
     c = (d2 - d1) / (x2 - x0)
@@ -441,7 +444,7 @@ def _vertex(r: np.ndarray, p: np.ndarray, k: int, circular: bool) -> tuple[float
     xv = 0.5 * (x0 + x1) - d1 / (2.0 * c)
     xv = min(max(xv, x0), x2)
     yv = y0 + d1 * (xv - x0) + c * (xv - x0) * (xv - x1)
-    return float(xv), float(yv)
+    return xv, yv
 
 
 def _hysteresis_db(p: np.ndarray) -> float:
@@ -461,8 +464,8 @@ def _hysteresis_db(p: np.ndarray) -> float:
     d2 = p[4:] - 2.0 * p[2:-2] + p[:-4]
     v1 = (1.4826 * _median(np.abs(d1[::stride]))) ** 2 / 6.0
     v2 = (1.4826 * _median(np.abs(d2[::stride]))) ** 2 / 6.0
-    sigma = np.sqrt(max(16.0 * v1 - v2, 0.0) / 15.0)
-    return float(np.clip(_RISE_NOISE_FACTOR * sigma, _RISE_MIN_DB, _RISE_MAX_DB))
+    sigma = math.sqrt(max(16.0 * v1 - v2, 0.0) / 15.0)
+    return min(max(_RISE_NOISE_FACTOR * sigma, _RISE_MIN_DB), _RISE_MAX_DB)
 
 
 class _Side:
@@ -491,16 +494,19 @@ def _crossing(r: np.ndarray, p: np.ndarray, level: float, stop: int) -> float | 
     and outermost crossing, each linearly interpolated in dB."""
     seg = p[: stop + 1]
     below = seg < level
-    if not below.any():
-        return None
     j = int(below.argmax())  # first sample below; j >= 1 since p[0] is the peak
-    inner = r[j - 1] + (level - p[j - 1]) * (r[j] - r[j - 1]) / (p[j] - p[j - 1])
-    above = ~below
-    q = seg.size - 1 - int(above[::-1].argmax())  # last sample at/above the level
+    if not below[j]:
+        return None
+    ra, rb = r[j - 1:j + 1].tolist()
+    pa, pb = p[j - 1:j + 1].tolist()
+    inner = ra + (level - pa) * (rb - ra) / (pb - pa)
+    q = seg.size - 1 - int((~below[::-1]).argmax())  # last sample at/above the level
     if q >= seg.size - 1:
-        return float(inner)
-    outer = r[q] + (level - p[q]) * (r[q + 1] - r[q]) / (p[q + 1] - p[q])
-    return float(0.5 * (inner + outer))
+        return inner
+    ra, rb = r[q:q + 2].tolist()
+    pa, pb = p[q:q + 2].tolist()
+    outer = ra + (level - pa) * (rb - ra) / (pb - pa)
+    return 0.5 * (inner + outer)
 
 
 def _walk(r: np.ndarray, p: np.ndarray, lvl3: float, lvl10: float, rise: float) -> _Side:
@@ -510,15 +516,15 @@ def _walk(r: np.ndarray, p: np.ndarray, lvl3: float, lvl10: float, rise: float) 
     if n < 2:
         return s
     below3 = p < lvl3
-    if below3[0] or not below3.any():
-        return s
     j = int(below3.argmax())
+    if j == 0:  # the start is below half power, or nothing is
+        return s
     q = p[j:]
     runmin = np.minimum.accumulate(q)
     up = (q - runmin) > rise
     stop = n - 1
-    if up.any():
-        k = int(up.argmax())
+    k = int(up.argmax())
+    if up[k]:
         nidx = j + int(q[:k].argmin())
         s.null_idx = nidx
         s.null = _null_offset(r, p, nidx)
@@ -538,16 +544,15 @@ def _null_offset(r: np.ndarray, p: np.ndarray, k: int) -> float:
     """
     if k <= 0 or k >= r.size - 1:
         return float(r[k])
-    amp = 10.0 ** (p[k - 1:k + 2] / 20.0)
-    a0, a1, a2 = amp
-    x0, x1, x2 = r[k - 1], r[k], r[k + 1]
+    a0, a1, a2 = (10.0 ** (v / 20.0) for v in p[k - 1:k + 2].tolist())
+    x0, x1, x2 = r[k - 1:k + 2].tolist()
     if a0 >= a2:  # null between k and k+1, slope from the left pair
         s = (a0 - a1) / (x1 - x0)
         xz = x1 + (a1 / s if s > 0 else 0.0)
-        return float(min(xz, 0.5 * (x1 + x2)))
+        return min(xz, 0.5 * (x1 + x2))
     s = (a2 - a1) / (x2 - x1)
     xz = x1 - (a1 / s if s > 0 else 0.0)
-    return float(max(xz, 0.5 * (x0 + x1)))
+    return max(xz, 0.5 * (x0 + x1))
 
 
 def _lobes(r: np.ndarray, q: np.ndarray, j: int, pk_db: float, rise: float,
@@ -582,8 +587,8 @@ def _window(r: np.ndarray, p: np.ndarray, center: float, half: float,
     sorted: a slice, unless a full turn's window crosses the +/-180 seam)."""
     lo, hi = center - half, center + half
     if not circular or (lo >= r[0] and hi <= r[-1]):
-        i0 = int(np.searchsorted(r, lo, side="left"))
-        i1 = int(np.searchsorted(r, hi, side="right"))
+        i0 = int(r.searchsorted(lo, side="left"))
+        i1 = int(r.searchsorted(hi, side="right"))
         return r[i0:i1] - center, p[i0:i1]
     d = wrap180(r - center)
     sel = np.abs(d) <= half
@@ -640,7 +645,7 @@ def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
     if cnt < 9:
         return None
     u = d / half
-    v = np.vander(u, 5)
+    v = _vander4(u)
     vt = v.T
     try:
         coef = np.linalg.solve(vt @ v, vt @ y)
@@ -662,6 +667,18 @@ def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
             ub = float(ug[g] + 0.5 * (y0 - y2) / den * (ug[1] - ug[0]))
             yb = (((c4 * ub + c3) * ub + c2) * ub + c1) * ub + c0
     return center + ub * half, yb, rms, cnt
+
+
+def _vander4(u: np.ndarray) -> np.ndarray:
+    """``np.vander(u, 5)`` (columns u^4 .. u^0), the same floats: each power is the
+    previous one times ``u``, as ``np.vander`` forms them, with a fifth of its overhead."""
+    v = np.empty((u.shape[0], 5))
+    v[:, 4] = 1.0
+    v[:, 3] = u
+    np.multiply(u, u, out=v[:, 2])
+    np.multiply(v[:, 2], u, out=v[:, 1])
+    np.multiply(v[:, 1], u, out=v[:, 0])
+    return v
 
 
 def _smooth(p: np.ndarray, k: int, circular: bool) -> np.ndarray:

@@ -52,6 +52,7 @@ References:
 
 from __future__ import annotations
 
+import math
 from dataclasses import replace
 from functools import lru_cache
 
@@ -91,11 +92,11 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     if x.size < 5:
         return metrics
     r = wrap180(x - pk)  # offsets from the peak, any frame
-    dr = np.diff(r)
+    dr = r[1:] - r[:-1]
     if float(dr.min()) <= 0.0:  # measure() hands them sorted unless circular
         o = np.argsort(r, kind="stable")
         r, p = r[o], p[o]
-        dr = np.diff(r)
+        dr = r[1:] - r[:-1]
     pk_db = float(metrics.peak_power_db) if metrics.peak_power_db is not None else p.max()
     step = _median(dr[::-(-dr.size // 512)])  # <= 512 steps give the median
     unc: dict[str, float] = {}
@@ -103,8 +104,8 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     hpbw = metrics.hpbw_deg
 
     # Main-lobe fit: samples above half power around the peak, as measure() fits.
-    ic = int(np.searchsorted(r, 0.0))  # r is sorted: the sample nearest offset 0
-    if ic == r.size or (ic > 0 and -r[ic - 1] < r[ic]):
+    ic = int(r.searchsorted(0.0))  # r is sorted: the sample nearest offset 0
+    if ic == r.size or (ic > 0 and -float(r[ic - 1]) < float(r[ic])):
         ic -= 1
     lo, hi = _lobe_span(p, ic, pk_db + HALF_POWER_DB)
     fit = _poly_fit(r[lo:hi], p[lo:hi], 4 if hi - lo >= 7 else 2)
@@ -114,7 +115,7 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     # term and its caveat speak for the data).
     if fit is not None and hi - lo >= LOBE_SAMPLES_FOR_NOISE:
         res = p[lo:hi] - np.polyval(fit[0][::-1], r[lo:hi])
-        sigma = float(np.sqrt(np.sum(res * res) / (hi - lo - fit[0].size)))
+        sigma = math.sqrt(float(res @ res) / (hi - lo - fit[0].size))
     elif hpbw is not None and hpbw / step >= MIN_SAMPLES_PER_HPBW:
         sigma = noise_sigma_db(p, pk_db)
     else:
@@ -124,21 +125,22 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
     if fit is not None:
         coef, cov_unit, x_v = fit
         d2 = _poly_der(coef, x_v, 2)
-        g0 = x_v ** np.arange(coef.size, dtype=np.float64)
-        g = np.arange(coef.size, dtype=np.float64) * np.concatenate(([0.0], g0[:-1]))
+        pw = [x_v ** j for j in range(coef.size)]
+        g0 = np.array(pw)
+        g = np.array([0.0] + [j * pw[j - 1] for j in range(1, coef.size)])
         var_pk_db = sigma ** 2 * float(g0 @ cov_unit @ g0)
         if d2 < 0:
-            s_pk_noise = sigma * float(np.sqrt(max(g @ cov_unit @ g, 0.0))) / abs(d2)
+            s_pk_noise = sigma * math.sqrt(max(float(g @ cov_unit @ g), 0.0)) / abs(d2)
     # step floor for a direction: a uniform error over one step, scaled by how coarse
     # the step is against the beam (negligible at fine steps)
-    floor = step / np.sqrt(12.0) * min(1.0, step / hpbw) if hpbw else step / np.sqrt(12.0)
+    floor = step / math.sqrt(12.0) * min(1.0, step / hpbw) if hpbw else step / math.sqrt(12.0)
     s_pk_step = abs(_vertex_db(r, p, ic) - _vertex_lin(r, p, ic)) if 0 < ic < r.size - 1 \
         else step
     s_pk_step = max(s_pk_step, floor)
     if s_pk_noise is None:
         s_pk_noise = sigma * step / max(abs(p[min(ic + 1, p.size - 1)] - p[max(ic - 1, 0)]),
                                         1e-3)
-    unc["peak_angle_deg"] = float(np.hypot(s_pk_noise, s_pk_step))
+    unc["peak_angle_deg"] = math.hypot(s_pk_noise, s_pk_step)
     coarse = hpbw is not None and hpbw / step < MIN_SAMPLES_PER_HPBW
     if coarse or s_pk_step > max(s_pk_noise, _NOTE_STEP_FRAC * step):
         reasons.setdefault("peak_angle_deg", _step_note(step, hpbw))
@@ -159,9 +161,9 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
             var += s_e2 * inv[-1] ** 2
             step_var += max(d_step, floor) ** 2
         var += var_pk_db * (inv[1] - inv[0]) ** 2
-        s_hp_noise = float(np.sqrt(var))
-        s_hp_step = float(np.sqrt(step_var))
-        unc["hpbw_deg"] = float(np.hypot(s_hp_noise, s_hp_step))
+        s_hp_noise = math.sqrt(var)
+        s_hp_step = math.sqrt(step_var)
+        unc["hpbw_deg"] = math.hypot(s_hp_noise, s_hp_step)
         if coarse or s_hp_step > max(s_hp_noise, _NOTE_STEP_FRAC * step):
             reasons.setdefault("hpbw_deg", _step_note(step, hpbw))
 
@@ -177,13 +179,13 @@ def with_uncertainty(metrics: BeamMetrics, angle_deg: np.ndarray,
             coef, cov_unit, x_v = fit_s
             g0 = np.array([x_v ** j for j in range(coef.size)])
             var_sl = sigma ** 2 * float(g0 @ cov_unit @ g0)
-        s_sl_noise = float(np.sqrt(var_sl + var_pk_db))
+        s_sl_noise = math.sqrt(var_sl + var_pk_db)
         s_sl_step = 0.0
         if 0 < k < r.size - 1:
             s_sl_step = abs(_vertex_db(r, p, k, level=True)
                             - _vertex_lin(r, p, k, level=True))
-        s_sl_step = float(np.hypot(s_sl_step, s_pk_step_level(r, p, ic)))
-        unc["sll_db"] = float(np.hypot(s_sl_noise, s_sl_step))
+        s_sl_step = math.hypot(s_sl_step, s_pk_step_level(r, p, ic))
+        unc["sll_db"] = math.hypot(s_sl_noise, s_sl_step)
         if coarse or s_sl_step > max(s_sl_noise, _NOTE_LEVEL_DB):
             reasons.setdefault("sll_db", _step_note(step, hpbw))
     return replace(metrics, uncertainty=unc, reasons=reasons)
@@ -208,7 +210,7 @@ def _nearest(r: np.ndarray, e: float) -> int:
     """Index of the sorted ``r`` nearest ``e`` (the first on a tie), as
     ``np.abs(r - e).argmin()`` gives it, by bisection; ``r`` distinct by far more than
     an ulp, as measure() leaves it (duplicates within 1e-9 deg merged)."""
-    j = int(np.searchsorted(r, e))
+    j = int(r.searchsorted(e))
     if j == 0:
         return 0
     if j == r.size or abs(float(r[j - 1]) - e) <= abs(float(r[j]) - e):
@@ -220,9 +222,9 @@ def _within(r: np.ndarray, k: int, h: float) -> tuple[int, int]:
     """Slice bounds of the sorted ``r`` where ``abs(r - r[k]) <= h`` (the same test,
     made on a bisected neighbourhood only; the run is contiguous in sorted data)."""
     c = float(r[k])
-    lo = int(np.searchsorted(r, c - 2.0 * h))
-    hi = int(np.searchsorted(r, c + 2.0 * h, side="right"))
-    ok = np.flatnonzero(np.abs(r[lo:hi] - c) <= h)
+    lo = int(r.searchsorted(c - 2.0 * h))
+    hi = int(r.searchsorted(c + 2.0 * h, side="right"))
+    ok = (np.abs(r[lo:hi] - c) <= h).nonzero()[0]
     return lo + int(ok[0]), lo + int(ok[-1]) + 1
 
 
@@ -247,8 +249,8 @@ def _step_note(step_deg: float, hpbw_deg: float | None) -> str:
 
 def _lobe_span(p: np.ndarray, ic: int, level: float) -> tuple[int, int]:
     """Slice bounds of the contiguous run of samples at or above ``level`` around ic."""
-    below = np.flatnonzero(p < level)
-    k = int(np.searchsorted(below, ic))
+    below = (p < level).nonzero()[0]
+    k = int(below.searchsorted(ic))
     lo = int(below[k - 1]) + 1 if k > 0 else 0
     hi = int(below[k]) if k < below.size else p.size
     return lo, hi
@@ -264,7 +266,7 @@ def _poly_fit(x: np.ndarray, y: np.ndarray, deg: int
         return None
     scale = max(abs(float(x[0])), abs(float(x[-1]))) or 1.0  # x is sorted
     u = x / scale
-    a = np.vander(u, deg + 1, increasing=True)
+    a = _vander_inc(u, deg)
     try:
         ata_inv = np.linalg.inv(a.T @ a)
     except np.linalg.LinAlgError:
@@ -273,10 +275,11 @@ def _poly_fit(x: np.ndarray, y: np.ndarray, deg: int
     # back to unscaled x: c_k -> c_k / scale^k, covariance likewise
     s = scale ** -np.arange(deg + 1, dtype=np.float64)
     coef = c * s
-    cov = ata_inv * np.outer(s, s)
+    cov = ata_inv * (s[:, None] * s)
     # vertex: Newton's method on f' from 0 (the peak is at offset ~0)
-    d1 = _derivative(coef.tolist(), 1)
-    d2 = _derivative(coef.tolist(), 2)
+    cl = coef.tolist()
+    d1 = _derivative(cl, 1)
+    d2 = _derivative(cl, 2)
     x_v = 0.0
     for _ in range(6):
         h = _horner(d2, x_v)
@@ -289,6 +292,17 @@ def _poly_fit(x: np.ndarray, y: np.ndarray, deg: int
     if not abs(x_v) <= 2.0 * scale:  # diverged: the vertex is not inside the fit
         x_v = 0.0
     return coef, cov, x_v
+
+
+def _vander_inc(u: np.ndarray, deg: int) -> np.ndarray:
+    """``np.vander(u, deg + 1, increasing=True)``, the same floats (each power the
+    previous times ``u``, as numpy forms them) at a third of its per-call cost."""
+    a = np.empty((u.shape[0], deg + 1))
+    a[:, 0] = 1.0
+    a[:, 1] = u
+    for j in range(2, deg + 1):
+        np.multiply(a[:, j - 1], u, out=a[:, j])
+    return a
 
 
 def _derivative(coef: list[float], m: int) -> list[float]:
@@ -313,7 +327,9 @@ def _poly_der(coef: np.ndarray, x: float, m: int) -> float:
 
 def _three(r: np.ndarray, p: np.ndarray, k: int) -> tuple[float, float, float, float,
                                                           float, float]:
-    return r[k - 1], r[k], r[k + 1], p[k - 1], p[k], p[k + 1]
+    x0, x1, x2 = r[k - 1:k + 2].tolist()
+    y0, y1, y2 = p[k - 1:k + 2].tolist()
+    return x0, x1, x2, y0, y1, y2
 
 
 def _parabola_vertex(x0: float, x1: float, x2: float, y0: float, y1: float, y2: float
@@ -324,9 +340,9 @@ def _parabola_vertex(x0: float, x1: float, x2: float, y0: float, y1: float, y2: 
     d2 = (y2 - y1) / (x2 - x1)
     a = (d2 - d1) / (x2 - x0)
     if a >= 0:
-        return float(x1), float(y1)
+        return x1, y1
     xv = 0.5 * (x0 + x1) - d1 / (2.0 * a)
-    return float(xv), float(y0 + d1 * (xv - x0) + a * (xv - x0) * (xv - x1))
+    return xv, y0 + d1 * (xv - x0) + a * (xv - x0) * (xv - x1)
 
 
 def _vertex_db(r: np.ndarray, p: np.ndarray, k: int, level: bool = False) -> float:
@@ -337,9 +353,9 @@ def _vertex_db(r: np.ndarray, p: np.ndarray, k: int, level: bool = False) -> flo
 
 def _vertex_lin(r: np.ndarray, p: np.ndarray, k: int, level: bool = False) -> float:
     x0, x1, x2, y0, y1, y2 = _three(r, p, k)
-    lin = 10.0 ** (np.array([y0, y1, y2]) / 10.0)
-    xv, yv = _parabola_vertex(x0, x1, x2, *lin)
-    return 10.0 * np.log10(max(yv, 1e-30)) if level else xv
+    xv, yv = _parabola_vertex(x0, x1, x2, 10.0 ** (y0 / 10.0), 10.0 ** (y1 / 10.0),
+                              10.0 ** (y2 / 10.0))
+    return 10.0 * math.log10(max(yv, 1e-30)) if level else xv
 
 
 def s_pk_step_level(r: np.ndarray, p: np.ndarray, ic: int) -> float:
@@ -365,14 +381,17 @@ def _smoothing_gain(lobe_samples: int) -> float:
 def _edge(r: np.ndarray, p: np.ndarray, e: float, level: float) -> tuple[float, float]:
     """Slope (dB/deg) of the pattern at the crossing near offset ``e`` and the
     disagreement (deg) of linear-in-dB and linear-in-power interpolation there."""
-    j = int(np.searchsorted(r, e))
+    j = int(r.searchsorted(e))
     j = min(max(j, 1), r.size - 1)
-    x0, x1, y0, y1 = r[j - 1], r[j], p[j - 1], p[j]
     # slope from a least-squares line through up to 5 samples around the crossing
     lo, hi = max(j - 3, 0), min(j + 2, r.size)
+    rs, ps = r[lo:hi].tolist(), p[lo:hi].tolist()
+    x0, x1, y0, y1 = rs[j - 1 - lo], rs[j - lo], ps[j - 1 - lo], ps[j - lo]
     if hi - lo >= 3:
-        xs = r[lo:hi] - r[lo:hi].mean()
-        slope = float(xs @ p[lo:hi] / (xs @ xs))  # least-squares line
+        mean = sum(rs) / len(rs)
+        xs = [x - mean for x in rs]
+        slope = (sum(x * y for x, y in zip(xs, ps, strict=True))
+                 / sum(x * x for x in xs))  # least-squares line
     else:
         slope = (y1 - y0) / (x1 - x0) if x1 != x0 else 0.0
     if y1 == y0 or x1 == x0:
