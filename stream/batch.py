@@ -79,9 +79,9 @@ def wrap_angle_deg(angle_deg: np.ndarray | float) -> np.ndarray:
 def mod360(a: np.ndarray) -> np.ndarray:
     """``a % 360.0`` (deg, numpy's floored remainder), the same floats, without a
     per-element ``fmod`` when every value is within one turn (the usual case; ``%`` took
-    a tenth of ``measure()``): there the remainder is ``a``, or ``a + 360`` below 0
-    (a zero keeps its sign).  May return ``a`` itself; callers must not write into it.
-    tests/test_batch.py holds it equal to ``%``."""
+    a tenth of ``measure()``): there the remainder is ``a``, ``a + 360`` below 0 or
+    ``a - 360`` from 360 up to 720 (a zero keeps its sign).  May return ``a`` itself;
+    callers must not write into it.  tests/test_batch.py holds it equal to ``%``."""
     if a.size == 0:
         return a % 360.0
     lo = a.min()
@@ -90,6 +90,11 @@ def mod360(a: np.ndarray) -> np.ndarray:
         return a
     if lo > -360.0 and hi < 360.0:
         return np.where(a < 0.0, a + 360.0, a)
+    if lo >= 0.0 and hi < 720.0:  # offsets shifted by +180 (wrap180) land here
+        # fmod is exact and so is a - 360 on [360, 720] (Sterbenz): the same floats
+        return np.where(a >= 360.0, a - 360.0, a)
+    if lo > -360.0 and hi < 720.0:
+        return np.where(a < 0.0, a + 360.0, np.where(a >= 360.0, a - 360.0, a))
     return a % 360.0
 
 

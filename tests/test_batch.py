@@ -21,6 +21,14 @@ def test_mod360_gives_the_floats_of_the_remainder_operator(a: np.ndarray) -> Non
     assert np.array_equal(got, a % 360.0)  # -0.0 == 0.0: only a zero's sign may differ
 
 
+@given(arrays(np.float64, st.integers(1, 64), elements=st.floats(-720.0, 1080.0)
+              | st.sampled_from([-360.0, 0.0, 360.0, 720.0, 719.9999999999999, -1e-300])))
+def test_mod360_within_two_turns_gives_the_floats_of_the_remainder_operator(
+        a: np.ndarray) -> None:
+    # the shortcut ranges: one turn either side, and [0, 720) where wrap180 lands
+    assert np.array_equal(mod360(a), a % 360.0)
+
+
 @given(angles)
 def test_wrap180_gives_the_floats_of_the_wrap_expression(a: np.ndarray) -> None:
     assert np.array_equal(wrap180(a), (a + 180.0) % 360.0 - 180.0)
