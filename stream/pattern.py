@@ -51,13 +51,13 @@ beam at +/-180 deg is one lobe.
 
 from __future__ import annotations
 
-import functools
 import math
 
 import numpy as np
 
 from stream.batch import mod360, wrap180
 from stream.beam import HALF_POWER_DB, METRIC_KEYS, BeamMetrics
+from stream.lobe_fits import lsq_parabola_vertex, quartic_peak, savgol_smooth
 from stream.uncertainty import with_uncertainty
 
 #: Level of the -10 dB beamwidth, dB.
@@ -227,7 +227,7 @@ def _noisy_pass(f: _Frame, fit: _Fit) -> None:
     right, left = fit.right, fit.left
     half = 0.5 * (right.hp + left.hp)  # type: ignore[operator]
     ctr = 0.5 * (right.hp - left.hp)  # type: ignore[operator]
-    top = _poly_peak(r, pr, ctr, half, circular, peak_above_rms=_NOISE_DB)
+    top = quartic_peak(r, pr, ctr, half, circular, peak_above_rms=_NOISE_DB)
     if top is None or top[2] <= _NOISE_DB:
         return
     ps = pr
@@ -237,12 +237,12 @@ def _noisy_pass(f: _Frame, fit: _Fit) -> None:
     k_done = 0
     for npass in range(2):
         if npass:
-            top = _poly_peak(r, pr, ctr, half, circular) or top
+            top = quartic_peak(r, pr, ctr, half, circular) or top
         sigma, cnt = top[2], top[3]
         v_r, pk_db = top[0], top[1]
         k = 2 * (cnt // 12) + 1
         if k != k_done:
-            ps = _smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
+            ps = savgol_smooth(pr, 2 * k - 1, circular) if k >= 3 else pr
             k_done = k
         j = int(np.abs(r - v_r).argmin())
         rise = max(_RISE_MIN_DB, _RISE_NOISE_FACTOR * sigma / math.sqrt(k))
@@ -262,7 +262,7 @@ def _noisy_pass(f: _Frame, fit: _Fit) -> None:
         v_r = 0.5 * (right.hp - left.hp)  # fit ran off the lobe: use its centre
     sl = None
     if k_sl is not None and not sl_edge:
-        f2 = _lsq_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
+        f2 = lsq_parabola_vertex(r, pr, float(r[k_sl]), 0.5 * half, circular)
         sl = (f2[0], f2[1]) if f2 is not None else _vertex(r, ps, k_sl, circular)
     fit.v_r, fit.pk_db, fit.ps = v_r, pk_db, ps
     fit.right, fit.left, fit.k_sl, fit.sl_edge, fit.sl = right, left, k_sl, sl_edge, sl
@@ -581,127 +581,6 @@ def _lobes(r: np.ndarray, q: np.ndarray, j: int, pk_db: float, rise: float,
     return right, left, best, (not circular and (best == 0 or best == m - 1))
 
 
-def _window(r: np.ndarray, p: np.ndarray, center: float, half: float,
-            circular: bool) -> tuple[np.ndarray, np.ndarray]:
-    """Offsets from ``center`` and powers of the samples within ``half`` of it (r is
-    sorted: a slice, unless a full turn's window crosses the +/-180 seam)."""
-    lo, hi = center - half, center + half
-    if not circular or (lo >= r[0] and hi <= r[-1]):
-        i0 = int(r.searchsorted(lo, side="left"))
-        i1 = int(r.searchsorted(hi, side="right"))
-        return r[i0:i1] - center, p[i0:i1]
-    d = wrap180(r - center)
-    sel = np.abs(d) <= half
-    return d[sel], p[sel]
-
-
-def _lsq_vertex(r: np.ndarray, p: np.ndarray, center: float, half: float,
-                circular: bool) -> tuple[float, float, float, int] | None:
-    """Least-squares parabola (dB) through the samples within ``half`` of ``center``.
-
-    Returns ``(vertex offset, vertex level, rms residual dB, samples used)``, or
-    ``None`` with fewer than 7 samples or a non-concave fit.
-    """
-    d, y = _window(r, p, center, half, circular)
-    cnt = d.size
-    if cnt < 7:
-        return None
-    u = d / half
-    u2 = u * u
-    # Normal equations of y = a u^2 + b u + c (u scaled to [-1, 1]: well conditioned).
-    s1, s2, s3, s4 = u.sum(), u2.sum(), (u2 * u).sum(), (u2 * u2).sum()
-    m = np.array([[s4, s3, s2], [s3, s2, s1], [s2, s1, float(cnt)]])
-    rhs = np.array([(u2 * y).sum(), (u * y).sum(), y.sum()])
-    try:
-        a, b, c = (float(z) for z in np.linalg.solve(m, rhs))
-    except np.linalg.LinAlgError:
-        return None
-    if not a < 0.0:
-        return None
-    res = y - ((a * u + b) * u + c)
-    rms = float(np.sqrt(np.mean(res * res)))
-    uv = min(max(-b / (2.0 * a), -1.0), 1.0)
-    return center + uv * half, a * uv * uv + b * uv + c, rms, cnt
-
-
 def _median(x: np.ndarray) -> float:
     """Median (upper one for even sizes), without np.median's overhead."""
     return float(np.sort(x)[x.size // 2])  # sort: partition is slow on equal values
-
-
-#: Grid (in units of the fit half-width) on which the fitted quartic's maximum is sought.
-_PEAK_GRID = np.linspace(-1.0, 1.0, 401)
-
-
-def _poly_peak(r: np.ndarray, p: np.ndarray, center: float, half: float,
-               circular: bool, peak_above_rms: float = -1.0
-               ) -> tuple[float, float, float, int] | None:
-    """Maximum of a least-squares quartic (dB) through the samples within ``half`` of
-    ``center``: ``(offset, level, rms residual dB, samples used)``, or ``None`` with
-    fewer than 9 samples.  The maximum is searched only when the rms residual exceeds
-    ``peak_above_rms`` (offset and level are NaN otherwise)."""
-    d, y = _window(r, p, center, half, circular)
-    cnt = d.size
-    if cnt < 9:
-        return None
-    u = d / half
-    v = _vander4(u)
-    vt = v.T
-    try:
-        coef = np.linalg.solve(vt @ v, vt @ y)
-    except np.linalg.LinAlgError:
-        return None
-    res = y - v @ coef
-    rms = float(np.sqrt(res @ res / cnt))
-    if rms <= peak_above_rms:
-        return float("nan"), float("nan"), rms, cnt
-    c4, c3, c2, c1, c0 = (float(c) for c in coef)
-    ug = _PEAK_GRID
-    yg = (((c4 * ug + c3) * ug + c2) * ug + c1) * ug + c0
-    g = int(yg.argmax())
-    ub, yb = float(ug[g]), float(yg[g])
-    if 0 < g < ug.size - 1:  # refine on the grid with the 3-point parabola
-        y0, y1, y2 = yg[g - 1], yg[g], yg[g + 1]
-        den = y0 - 2.0 * y1 + y2
-        if den < 0.0:
-            ub = float(ug[g] + 0.5 * (y0 - y2) / den * (ug[1] - ug[0]))
-            yb = (((c4 * ub + c3) * ub + c2) * ub + c1) * ub + c0
-    return center + ub * half, yb, rms, cnt
-
-
-def _vander4(u: np.ndarray) -> np.ndarray:
-    """``np.vander(u, 5)`` (columns u^4 .. u^0), the same floats: each power is the
-    previous one times ``u``, as ``np.vander`` forms them, with a fifth of its overhead."""
-    v = np.empty((u.shape[0], 5))
-    v[:, 4] = 1.0
-    v[:, 3] = u
-    np.multiply(u, u, out=v[:, 2])
-    np.multiply(v[:, 2], u, out=v[:, 1])
-    np.multiply(v[:, 1], u, out=v[:, 0])
-    return v
-
-
-def _smooth(p: np.ndarray, k: int, circular: bool) -> np.ndarray:
-    """Savitzky-Golay smoothing, quadratic over k (odd) samples: unlike a moving
-    average it does not flatten a curved lobe, so the level crossings keep their place
-    (A. Savitzky, M. J. E. Golay, Anal. Chem. 36(8), 1964).  The weights are
-    ``scipy.signal.savgol_coeffs`` (cached per window); one ``np.convolve`` applies them
-    (``savgol_filter`` itself measured 3-13x slower here: it refits the weights and pads
-    through ndimage on every call).  Sector edges are padded with the end values, a full
-    turn wraps."""
-    m = k // 2
-    c = _savgol_weights(k)
-    if circular and p.size > k:
-        ext = np.concatenate((p[-m:], p, p[:m]))
-    else:
-        ext = np.concatenate((np.full(m, p[0]), p, np.full(m, p[-1])))
-    return np.convolve(ext, c, mode="valid")
-
-
-@functools.lru_cache(maxsize=64)
-def _savgol_weights(k: int) -> np.ndarray:
-    """Quadratic Savitzky-Golay smoothing weights over ``k`` (odd) samples."""
-    from scipy.signal import savgol_coeffs  # here: scipy.signal is slow to import
-    c = savgol_coeffs(k, 2)
-    c.setflags(write=False)
-    return c

@@ -60,6 +60,7 @@ import numpy as np
 
 from stream.batch import wrap180
 from stream.beam import HALF_POWER_DB, BeamMetrics
+from stream.lobe_fits import savgol_weights
 
 #: Samples within this many dB of the peak are used to estimate the noise.
 NOISE_SPAN_DB: float = 20.0
@@ -373,8 +374,7 @@ def _smoothing_gain(lobe_samples: int) -> float:
     k = 2 * (lobe_samples // 12) + 1
     if k < 3:
         return 1.0
-    from scipy.signal import savgol_coeffs  # here: scipy.signal is slow to import
-    h = savgol_coeffs(2 * k - 1, 2)
+    h = savgol_weights(2 * k - 1)  # the weights measure() smooths with
     return float(np.sum(h * h))
 
 
