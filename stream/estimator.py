@@ -206,6 +206,7 @@ class RollingPattern:
         self._log = SweepLog(self._centres_deg, self.config.bin_width_deg,
                              self.config.history)
         self._samples = 0
+        self._run_backoff = (_RUN_MIN, 0, 0)  # update_many: run size, skip, batches to wait
 
     @property
     def samples(self) -> int:
@@ -270,9 +271,9 @@ class RollingPattern:
         """
         n = len(batches)
         i = 0
-        size = _RUN_MIN  # grows while runs succeed
-        skip = 0
-        wait = 0
+        # The back-off lives on between calls: a replay hands over ten batches a tick,
+        # and a stream whose batches never run would otherwise try afresh every call.
+        size, skip, wait = self._run_backoff
         use_run = self._fold_path_allowed("run") and self._path != "reference"
         pinned = self._path == "run"
         while i < n:
@@ -295,6 +296,7 @@ class RollingPattern:
                 if j - i == size:
                     size = min(2 * size, _RUN_MAX)
             i = j
+        self._run_backoff = (size, skip, wait)
 
     def _prepare(self, batch: SampleBatch) -> tuple | None:
         """Clean angles and sample times, linear power, window-relative bin index and
@@ -478,6 +480,9 @@ class RollingPattern:
         if det.direction == 0 or det.turning or det.seam_turns != 0:
             return start
         m = len(batches[start])
+        a0 = batches[start].angle_deg
+        if m and not self._few_bins(float(a0.min()), float(a0.max())):
+            return start  # the first batch alone spans too many bins: no run here
         stop = min(len(batches), start + size)
         end = start + 1
         while end < stop and len(batches[end]) == m:
@@ -558,6 +563,14 @@ class RollingPattern:
             self._fold_scalar(i0s[k], sums[o:o + spans[k]], counts[o:o + spans[k]],
                               float(nows[start + k]))
         return start + e
+
+    def _few_bins(self, lo: float, hi: float) -> bool:
+        """Whether angles in [lo, hi] fall within ``_FEW_BINS`` bins without crossing
+        the seam (the run path's condition on each batch)."""
+        if not (-180.0 <= lo and hi < 180.0):
+            return False
+        i0, i1 = _window(lo, hi, self._bins_per_deg, self._c0_bins)
+        return i1 < self._nb and i1 - i0 + 1 <= _FEW_BINS
 
     # -- the reference: every fold path, stated plainly --------------------------------
     def _fold_reference(self, batch: SampleBatch, now: float) -> None:

@@ -643,6 +643,32 @@ def test_update_many_gives_the_bits_of_update_one_by_one(cfg) -> None:
         assert np.array_equal(s1.power_db, s2.power_db), name
 
 
+def test_update_many_stops_trying_runs_on_a_stream_that_never_runs(monkeypatch) -> None:
+    """Batches of 100 samples spanning ~10 bins never take the run path; a replay hands
+    them over ten per call.  The back-off must carry over between calls (it restarted
+    every call and tried three failing runs per ten batches), and the results stay
+    those of update() one by one."""
+    ang = np.tile(np.arange(-60.0, 60.0, 0.1), 10)  # 10 sawtooth sweeps, 120 batches
+    pw = _pattern_db(ang)
+    batches = [SampleBatch(np.full(100, 1.0e9), ang[i:i + 100], pw[i:i + 100])
+               for i in range(0, ang.size, 100)]
+    nows = [1.0e9 + 0.01 * k for k in range(len(batches))]
+    tries = []
+    fast, ref = RollingPattern(), RollingPattern()
+    real = RollingPattern._fold_run
+    monkeypatch.setattr(RollingPattern, "_fold_run",
+                        lambda self, *a: tries.append(1) or real(self, *a))
+    for i in range(0, len(batches), 10):
+        fast.update_many(batches[i:i + 10], nows[i:i + 10])
+        for b, now in zip(batches[i:i + 10], nows[i:i + 10], strict=True):
+            ref.update(b, now)
+    # waits of 1, 3, 7, 15, 31, 63 batches: 6 or 7 tries in 120 batches (36 when
+    # every call started afresh)
+    assert 0 < len(tries) <= 8, len(tries)
+    assert np.array_equal(fast.snapshot(nows[-1]).power_db, ref.snapshot(nows[-1]).power_db)
+    assert repr(fast.sweeps) == repr(ref.sweeps)
+
+
 # -- fold paths: every one bit for bit equal to the plain reference ---------------------
 
 
